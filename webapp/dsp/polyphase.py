@@ -1,0 +1,368 @@
+"""The streaming sample-rate converters.
+
+Conventions
+-----------
+* Data is frames x channels; every converter is stateful: ``process(block)`` returns the output
+  frames that are complete so far, ``flush()`` returns the rest. Any split of the input into
+  blocks gives the same output (to rounding).
+* Alignment: a linear-phase converter removes its own delay, so output frame n sits at time
+  n / fs_out of the input; a minimum-phase one keeps its (small, reported) delay. The output
+  of a whole signal of ``frames`` frames has ``ceil(frames * up / down)`` frames.
+* Positions are integers (block index q, residue r), never float times, so hours don't drift.
+
+The math (see DESIGN.md): with prototype h (N taps at fs_in*L) and T = ceil(N/L) taps per phase,
+output n = qL + r, with p = rM + D = a_r L + b_r, is
+    y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j].
+Outputs of one block (K*L of them when L is small) are split into a few groups of neighbouring
+residues; each group is one dense matrix product of a strided window matrix with a small
+coefficient matrix, so BLAS does the work. Channels stack as more rows.
+"""
+
+import math
+
+import numpy as np
+
+from .errors import ParameterError
+
+__all__ = ["PolyphaseConverter", "ArbitraryConverter", "CascadeConverter", "make_converter",
+           "convert", "output_length"]
+
+_GROUP_ROWS = 96          # outputs per coefficient matrix: wide enough for BLAS, little waste
+_CHUNK_ELEMENTS = 1 << 19  # window-matrix elements per product (a few MB)
+
+
+def output_length(frames, up, down):
+    """ceil(frames * up / down): the output length of a whole signal."""
+    return -(-int(frames) * int(up) // int(down))
+
+
+def _as_block(block, channels, dtype):
+    x = np.asarray(block)
+    if x.ndim == 1:
+        x = x[:, None]
+    if x.ndim != 2 or x.shape[1] != channels:
+        raise ParameterError(f"blocks must be frames x {channels} channels, got shape {x.shape}",
+                             "block")
+    return x.astype(dtype, copy=False)
+
+
+class _Streaming:
+    """Shared buffer handling: channel-major input buffer with an absolute start index."""
+
+    def _init_stream(self, channels, dtype, pre):
+        if channels < 1:
+            raise ParameterError(f"channels must be at least 1, got {channels}", "channels")
+        self.channels = int(channels)
+        self.dtype = np.dtype(dtype)
+        self._pre = int(pre)
+        self.reset()
+
+    def reset(self):
+        self._buf = np.zeros((self.channels, self._pre), dtype=self.dtype)
+        self._buf_start = -self._pre
+        self.frames_in = 0
+        self.frames_out = 0
+        self._flushed = False
+        self._reset_position()
+
+    def _append(self, x):
+        if self._flushed:
+            raise ParameterError("the converter was flushed; call reset() before reuse", "block")
+        if x.shape[0]:
+            self._buf = np.concatenate([self._buf, x.T], axis=1)
+            self.frames_in += x.shape[0]
+
+    def _drop_before(self, index):
+        cut = index - self._buf_start
+        if cut > 0:
+            self._buf = np.ascontiguousarray(self._buf[:, cut:])
+            self._buf_start = index
+
+    def _emit(self, y, limit=None):
+        if limit is not None:
+            y = y[:max(0, limit - self.frames_out)]
+        self.frames_out += y.shape[0]
+        return y
+
+    def flush(self):
+        """Return the remaining output frames; the total is ceil(frames_in * up / down)."""
+        total = output_length(self.frames_in, self.up, self.down)
+        need = total - self.frames_out
+        out = self._finish(need)
+        self._flushed = True
+        return self._emit(out, total)
+
+    def process_all(self, x):
+        """Convert a whole signal at once (resets first)."""
+        self.reset()
+        head = self.process(x)
+        return np.concatenate([head, self.flush()], axis=0)
+
+
+class PolyphaseConverter(_Streaming):
+    """Exact rational L/M converter by grouped polyphase matrix products.
+
+    Parameters
+    ----------
+    taps : array_like
+        Prototype at fs_in * up with DC gain ``up``.
+    up, down : int
+        Reduced factor L/M.
+    channels : int
+    dtype : {"float32", "float64"}
+    delay : int, optional
+        Delay to remove, in samples at the filter rate; default (len(taps) - 1) // 2.
+    """
+
+    def __init__(self, taps, up, down, *, channels=1, dtype="float64", delay=None):
+        h = np.asarray(taps, dtype=np.float64)
+        self.up, self.down = int(up), int(down)
+        if self.up < 1 or self.down < 1 or math.gcd(self.up, self.down) != 1:
+            raise ParameterError(f"up/down must be coprime positive integers, got {up}/{down}",
+                                 "up")
+        self.numtaps = h.size
+        self.delay = (h.size - 1) // 2 if delay is None else int(delay)
+        L, M, D = self.up, self.down, self.delay
+        T = -(-h.size // L)
+        self.taps_per_phase = T
+        hp = np.zeros(T * L)
+        hp[:h.size] = h
+        # group K blocks of L outputs when L is small, so each product has enough columns
+        K = max(1, -(-_GROUP_ROWS // L)) if L < _GROUP_ROWS else 1
+        self._rows = R = K * L
+        self._stride = K * M
+        r = np.arange(R)
+        p = r * M + D
+        off, b = p // L, p % L
+        groups = []
+        ngroups = max(1, round(R / _GROUP_ROWS))
+        bounds = np.linspace(0, R, ngroups + 1).round().astype(int)
+        for g0, g1 in zip(bounds[:-1], bounds[1:]):
+            lo = int(off[g0]) - (T - 1)
+            width = int(off[g1 - 1]) - int(off[g0]) + T
+            mat = np.zeros((width, g1 - g0))
+            j = np.arange(T)
+            for col, rr in enumerate(range(g0, g1)):
+                rows = off[rr] - j - lo
+                mat[rows, col] = hp[j * L + b[rr]]
+            groups.append((int(g0), int(g1), lo, width, mat.astype(dtype)))
+        self._groups = groups
+        self._lo = min(g[2] for g in groups)
+        self._hi = max(g[2] + g[3] for g in groups)   # window end (exclusive) relative to q*stride
+        self._init_stream(channels, dtype, max(0, -self._lo))
+
+    def _reset_position(self):
+        self._q = 0
+
+    def _blocks_ready(self):
+        end = self._buf_start + self._buf.shape[1]
+        # block q is ready when q*stride + hi <= end
+        avail = (end - self._hi) // self._stride + 1
+        return max(0, avail - self._q)
+
+    def _run(self, nq):
+        C, R, S = self.channels, self._rows, self._stride
+        out = np.empty((C, nq, R), dtype=self.dtype)
+        buf = self._buf
+        item = buf.itemsize
+        base = self._q * S - self._buf_start
+        for g0, g1, lo, width, mat in self._groups:
+            step = max(1, _CHUNK_ELEMENTS // (width * C))
+            for q0 in range(0, nq, step):
+                n = min(step, nq - q0)
+                start = base + q0 * S + lo
+                view = np.lib.stride_tricks.as_strided(
+                    buf[:, start:], shape=(C, n, width),
+                    strides=(buf.strides[0], S * item, item), writeable=False)
+                win = np.ascontiguousarray(view).reshape(C * n, width)
+                out[:, q0:q0 + n, g0:g1] = (win @ mat).reshape(C, n, g1 - g0)
+        self._q += nq
+        return out.reshape(C, nq * R).T
+
+    def process(self, block):
+        """Feed a frames x channels block; return the output frames now complete."""
+        x = _as_block(block, self.channels, self.dtype)
+        self._append(x)
+        nq = self._blocks_ready()
+        if nq == 0:
+            return np.empty((0, self.channels), dtype=self.dtype)
+        y = self._run(nq)
+        self._drop_before(self._q * self._stride + self._lo)
+        return self._emit(y)
+
+    def _finish(self, need):
+        if need <= 0:
+            return np.empty((0, self.channels), dtype=self.dtype)
+        nq = -(-need // self._rows)
+        end_needed = (self._q + nq - 1) * self._stride + self._hi
+        end = self._buf_start + self._buf.shape[1]
+        if end_needed > end:
+            pad = np.zeros((self.channels, end_needed - end), dtype=self.dtype)
+            self._buf = np.concatenate([self._buf, pad], axis=1)
+        return self._run(nq)[:need]
+
+
+class ArbitraryConverter(_Streaming):
+    """Bandlimited interpolation for ratios whose exact polyphase bank is too large.
+
+    A prototype sampled at ``phases`` points per input sample; each output takes the two
+    nearest phase filters and interpolates their coefficients linearly by the fractional
+    position (Smith & Gossett, ICASSP 1984). Positions are exact integers: output n sits at
+    input position n*down/up, split into whole samples, table phase and remainder.
+    """
+
+    def __init__(self, taps, up, down, phases, *, channels=1, dtype="float64", delay=None):
+        h = np.asarray(taps, dtype=np.float64)
+        self.up, self.down, self.phases = int(up), int(down), int(phases)
+        P = self.phases
+        self.delay = (h.size - 1) // 2 if delay is None else int(delay)
+        D = self.delay
+        # taps h[k] sit at tau = (k - D)/P input samples; for offset i (input m = a - i) and
+        # table phase p, tau = i + p/P, k = i*P + p + D.
+        i_lo = -((D + P) // P) - 1
+        i_hi = (h.size - D) // P + 1
+        i = np.arange(i_lo, i_hi + 1)
+        p = np.arange(P + 1)
+        k = i[None, :] * P + p[:, None] + D
+        valid = (k >= 0) & (k < h.size)
+        table = np.where(valid, h[np.clip(k, 0, h.size - 1)], 0.0)
+        used = np.nonzero(np.any(table != 0, axis=0))[0]
+        table = table[:, used[0]:used[-1] + 1]
+        self._i = i[used[0]:used[-1] + 1]
+        self._table = table.astype(dtype)
+        self.taps_per_phase = self._table.shape[1]
+        self.numtaps = h.size
+        self._reach_back = int(self._i[-1])   # inputs down to a - i_max
+        self._reach_fwd = int(-self._i[0])    # inputs up to a - i_min
+        self._init_stream(channels, dtype, max(0, self._reach_back))
+
+    def _reset_position(self):
+        self._n = 0
+
+    def _positions(self, n0, count):
+        n = np.arange(n0, n0 + count, dtype=np.int64)
+        num = n * self.down
+        a = num // self.up
+        rem = num - a * self.up
+        scaled = rem * self.phases
+        p = scaled // self.up
+        eta = (scaled - p * self.up).astype(np.float64) / self.up
+        return a, p, eta
+
+    def _ready(self):
+        end = self._buf_start + self._buf.shape[1]
+        # output n is ready when a_n + reach_fwd < end, a_n = floor(n*down/up)
+        last_a = end - 1 - self._reach_fwd
+        if last_a < 0:
+            return 0
+        n_max = ((last_a + 1) * self.up - 1) // self.down   # largest n with a_n <= last_a
+        return max(0, n_max + 1 - self._n)
+
+    def _run(self, count):
+        C = self.channels
+        out = np.empty((C, count), dtype=self.dtype)
+        width = self._table.shape[1]
+        step = max(1, (1 << 18) // (width * C))
+        rev = -self._i  # input offsets relative to a
+        for s in range(0, count, step):
+            n = min(step, count - s)
+            a, p, eta = self._positions(self._n + s, n)
+            coef = self._table[p] * (1 - eta)[:, None].astype(self.dtype) \
+                + self._table[p + 1] * eta[:, None].astype(self.dtype)
+            idx = (a - self._buf_start)[:, None] + rev[None, :]
+            win = self._buf[:, idx]                       # C x n x width
+            out[:, s:s + n] = np.einsum("cnk,nk->cn", win, coef, optimize=False)
+        self._n += count
+        return out.T
+
+    def process(self, block):
+        x = _as_block(block, self.channels, self.dtype)
+        self._append(x)
+        count = self._ready()
+        if count == 0:
+            return np.empty((0, self.channels), dtype=self.dtype)
+        y = self._run(count)
+        a_next = (self._n * self.down) // self.up
+        self._drop_before(a_next - self._reach_back)
+        return self._emit(y)
+
+    def _finish(self, need):
+        if need <= 0:
+            return np.empty((0, self.channels), dtype=self.dtype)
+        a_last = ((self._n + need - 1) * self.down) // self.up
+        end_needed = a_last + self._reach_fwd + 1
+        end = self._buf_start + self._buf.shape[1]
+        if end_needed > end:
+            pad = np.zeros((self.channels, end_needed - end), dtype=self.dtype)
+            self._buf = np.concatenate([self._buf, pad], axis=1)
+        return self._run(need)
+
+
+class CascadeConverter:
+    """Stages run one after another; the whole keeps the single-stage length contract."""
+
+    def __init__(self, stages, up, down):
+        self.stages = list(stages)
+        self.up, self.down = int(up), int(down)
+        self.channels = self.stages[0].channels
+        self.dtype = self.stages[-1].dtype
+        self.reset()
+
+    def reset(self):
+        for s in self.stages:
+            s.reset()
+        self.frames_in = 0
+        self.frames_out = 0
+
+    def process(self, block):
+        x = _as_block(block, self.channels, self.stages[0].dtype)
+        self.frames_in += x.shape[0]
+        for s in self.stages:
+            x = s.process(x)
+        return self._emit(x)
+
+    def _emit(self, y, total=None):
+        if total is not None:
+            y = y[:max(0, total - self.frames_out)]
+        self.frames_out += y.shape[0]
+        return y
+
+    def flush(self):
+        total = output_length(self.frames_in, self.up, self.down)
+        x = None
+        for s in self.stages:
+            head = s.process(x) if x is not None else np.empty((0, s.channels), s.dtype)
+            x = np.concatenate([head, s.flush()], axis=0)
+        short = total - self.frames_out - x.shape[0]
+        if short > 0:
+            x = np.concatenate([x, np.zeros((short, self.channels), x.dtype)], axis=0)
+        return self._emit(x, total)
+
+    def process_all(self, x):
+        self.reset()
+        head = self.process(x)
+        return np.concatenate([head, self.flush()], axis=0)
+
+
+def make_converter(design, *, channels=1, dtype=None):
+    """A converter for a :class:`~webapp.dsp.design.Design` or a multistage plan."""
+    stages = getattr(design, "stages", None)
+    if stages is not None:
+        parts = [make_converter(s, channels=channels, dtype=dtype) for s in stages]
+        return CascadeConverter(parts, design.up, design.down)
+    dtype = dtype or design.spec.arithmetic
+    if design.path == "arbitrary":
+        return ArbitraryConverter(design.taps, design.up, design.down, design.phases,
+                                  channels=channels, dtype=dtype, delay=design.delay_samples)
+    return PolyphaseConverter(design.taps, design.up, design.down, channels=channels,
+                              dtype=dtype, delay=design.delay_samples)
+
+
+def convert(x, design, *, dtype=None):
+    """Convert a whole frames x channels signal (or 1-D) with ``design``."""
+    x = np.asarray(x)
+    flat = x.ndim == 1
+    x2 = x[:, None] if flat else x
+    conv = make_converter(design, channels=x2.shape[1], dtype=dtype)
+    y = conv.process_all(x2)
+    return y[:, 0] if flat else y

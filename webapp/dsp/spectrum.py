@@ -1,0 +1,117 @@
+"""Frequency responses of FIR filters and spectra of signals.
+
+Conventions: frequencies in Hz with the rate explicit; responses are complex gains; levels in dB
+are ``20 log10 |H|`` (responses) or ``10 log10`` of power densities (spectra).
+"""
+
+import numpy as np
+from scipy import signal
+
+__all__ = ["response_at", "dense_response", "welch_spectrum", "db", "decimate_for_plot",
+           "band_energy_db"]
+
+TINY = 1e-300
+
+
+def db(values):
+    """20 log10 |values|, floored so that zeros give a finite -6000 dB."""
+    return 20.0 * np.log10(np.maximum(np.abs(values), TINY))
+
+
+def response_at(taps, rate_hz, freqs_hz):
+    """Exact complex response of FIR ``taps`` (running at ``rate_hz``) at chosen frequencies.
+
+    Costs len(taps) * len(freqs_hz) operations: for a few frequencies (band edges) or short filters.
+    """
+    taps = np.asarray(taps, dtype=np.float64)
+    freqs = np.atleast_1d(np.asarray(freqs_hz, dtype=np.float64))
+    n = np.arange(taps.size)
+    out = np.empty(freqs.size, dtype=np.complex128)
+    step = max(1, 2**22 // max(taps.size, 1))
+    for i in range(0, freqs.size, step):
+        w = 2 * np.pi * freqs[i:i + step, None] / rate_hz
+        out[i:i + step] = np.exp(-1j * w * n[None, :]) @ taps
+    return out
+
+
+def dense_response(taps, rate_hz, *, points_per_lobe=16, min_nfft=2**16, max_nfft=2**24):
+    """Response on the uniform grid 0 .. rate/2 by one zero-padded real FFT.
+
+    The grid holds about ``points_per_lobe`` points per sidelobe (the sidelobe period of an
+    N-tap filter is rate/N), so peaks are sampled to within a small fraction of a dB.
+
+    Returns
+    -------
+    freqs_hz, H : ndarray
+    """
+    taps = np.asarray(taps, dtype=np.float64)
+    nfft = 1 << int(np.ceil(np.log2(max(min_nfft, points_per_lobe * taps.size))))
+    nfft = min(nfft, max_nfft)
+    if taps.size > nfft:
+        # fold the taps (time aliasing of the FFT grid) - exact on the grid
+        pad = (-taps.size) % nfft
+        taps = np.concatenate([taps, np.zeros(pad)]).reshape(-1, nfft).sum(axis=0)
+    H = np.fft.rfft(taps, nfft)
+    freqs = np.arange(H.size) * (rate_hz / nfft)
+    return freqs, H
+
+
+def welch_spectrum(x, rate_hz, *, resolution_hz=None, nperseg=None):
+    """Welch power spectral density (Hann, 50 % overlap), averaged over channels.
+
+    Parameters
+    ----------
+    x : ndarray, frames x channels (or 1-D)
+    rate_hz : float
+    resolution_hz : float, optional
+        Target bin width; default about 5 Hz at 44.1/48 kHz (8192-point segments).
+
+    Returns
+    -------
+    freqs_hz, psd_db : ndarray
+        PSD in dB relative to full scale per Hz (a full-scale sine's power is 0.5).
+    """
+    x = np.asarray(x, dtype=np.float64)
+    if x.ndim == 1:
+        x = x[:, None]
+    if nperseg is None:
+        if resolution_hz is None:
+            nperseg = 8192 if rate_hz <= 50000 else 16384
+        else:
+            nperseg = 1 << int(np.ceil(np.log2(rate_hz / resolution_hz)))
+    nperseg = int(max(16, min(nperseg, x.shape[0])))
+    freqs, pxx = signal.welch(x, fs=rate_hz, window="hann", nperseg=nperseg, axis=0,
+                              scaling="density")
+    pxx = pxx.mean(axis=1)
+    return freqs, 10 * np.log10(np.maximum(pxx, 1e-30))
+
+
+def band_energy_db(freqs_hz, psd_db, low_hz, high_hz):
+    """Energy between two frequencies relative to the total, in dB (from a PSD in dB)."""
+    p = 10 ** (np.asarray(psd_db) / 10)
+    band = (freqs_hz >= low_hz) & (freqs_hz <= high_hz)
+    total = p.sum()
+    if total <= 0 or not band.any():
+        return -np.inf
+    return 10 * np.log10(max(p[band].sum() / total, 1e-30))
+
+
+def decimate_for_plot(freqs, values, *, max_points=2000, log_axis=False):
+    """Reduce a curve to at most ``max_points`` while keeping peaks (max of each bucket)."""
+    freqs = np.asarray(freqs)
+    values = np.asarray(values)
+    if freqs.size <= max_points:
+        return freqs, values
+    if log_axis:
+        lo = max(freqs[1] if freqs.size > 1 else 1.0, 1.0)
+        edges = np.geomspace(lo, freqs[-1], max_points + 1)
+    else:
+        edges = np.linspace(freqs[0], freqs[-1], max_points + 1)
+    idx = np.searchsorted(freqs, edges)
+    out_f, out_v = [], []
+    for a, b in zip(idx[:-1], idx[1:]):
+        if b > a:
+            k = a + int(np.argmax(values[a:b]))
+            out_f.append(freqs[k])
+            out_v.append(values[k])
+    return np.asarray(out_f), np.asarray(out_v)
