@@ -20,7 +20,6 @@ from dataclasses import dataclass, field
 import hashlib
 import math
 import os
-import re
 import secrets
 
 import numpy as np
@@ -128,7 +127,6 @@ _AIFF_LIMIT_BYTES = 2**31 - 2**20
 #: Longest excerpt :func:`read_excerpt` returns, so a page request can't pull hours into memory.
 EXCERPT_MAX_S = 600.0
 
-_LIBSNDFILE_SUFFIX = re.compile(r"\s*\(libsndfile-[^)]*\)\s*$")
 _COMMENT_JOIN = "; "
 
 
@@ -360,8 +358,8 @@ def read_blocks(path, *, blocksize=65536, dtype="float64", start=0, frames=-1):
     -----
     Parameters and the file's presence are checked at the call; the file is opened at the first
     block and closed when the iterator ends or is closed. The finiteness check applies to float
-    dtypes; integer reads of float files get libsndfile's
-    clipped conversion and can't show NaN. Memory stays at one block whatever the duration.
+    dtypes; integer reads of float files get libsndfile's clipped conversion and can't show
+    NaN. Memory stays at one block whatever the duration.
     """
     blocksize = _check_int(blocksize, field="blocksize", minimum=1)
     dtype = _check_dtype(dtype, READ_DTYPES)
@@ -643,8 +641,8 @@ class AtomicWriter:
     tags : dict of str to str, optional
         Text tags (keys from :data:`TAG_NAMES`, e.g. ``probe(src).tags``). Those the target
         format keeps (:data:`TAG_SUPPORT`) are written; the rest are listed in
-        :attr:`dropped_tags`. A trailing "(libsndfile-x.y.z)" on "software" is removed because
-        libsndfile appends its own on every write.
+        :attr:`dropped_tags`. libsndfile appends "(libsndfile-x.y.z)" to "software" unless the
+        text already names it, so copies don't stack.
     add_comment : str, optional
         Text appended to the comment tag (joined with "; "), e.g. :func:`converted_comment`.
     source : str or os.PathLike, optional
@@ -699,8 +697,6 @@ class AtomicWriter:
                     f"tag names must be among {', '.join(TAG_NAMES)}; got {key!r}", "tags")
             if not isinstance(value, str):
                 raise ParameterError(f"tag {key} must be text, got {value!r}", "tags")
-            if key == "software":
-                value = _LIBSNDFILE_SUFFIX.sub("", value)
             if value:
                 out[key] = value
         if add_comment:

@@ -1,0 +1,291 @@
+"""The `rateferry` command: design, convert, audit, plans, serve, clean.
+
+Bad input ends with one line, ``rateferry: error: <rule and value>``, exit code 2, nothing written.
+"""
+
+import argparse
+import json
+import math
+import os
+import sys
+import time
+
+import numpy as np
+
+from . import __version__
+from .dsp.errors import RateferryError
+from .dsp.spec import PRESETS, DEFAULT_PRESET, preset, spec_from_dict
+
+EXIT_BAD_INPUT = 2
+
+SPEC_OPTIONS = [
+    # flag, spec field, type, help
+    ("--passband", "passband_hz", float, "passband edge in Hz (default: a fraction of the lower Nyquist)"),
+    ("--passband-fraction", "passband_fraction", float, "passband edge as a fraction of the lower Nyquist"),
+    ("--stopband", "stopband_hz", float, "stopband edge in Hz (default: the lower Nyquist)"),
+    ("--ripple", "ripple_db", float, "largest passband deviation, +- dB"),
+    ("--attenuation", "attenuation_db", float, "smallest stopband rejection, dB"),
+    ("--phase", "phase", str, "linear | minimum"),
+    ("--method", "method", str, "auto | kaiser | equiripple | least-squares"),
+    ("--arithmetic", "arithmetic", str, "float32 | float64"),
+    ("--stages", "stages", str, "single | auto (multistage when it saves work)"),
+]
+
+
+def jsonable(value):
+    """Plain JSON types; non-finite floats become null."""
+    if isinstance(value, dict):
+        return {str(k): jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return jsonable(value.tolist())
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        return v if math.isfinite(v) else None
+    return value
+
+
+def _add_spec_options(p):
+    p.add_argument("--preset", default=DEFAULT_PRESET, choices=sorted(PRESETS),
+                   help=f"starting spec (default {DEFAULT_PRESET})")
+    for flag, field, typ, text in SPEC_OPTIONS:
+        p.add_argument(flag, dest=field, type=typ, default=None, help=text)
+    p.add_argument("--transition-aliasing", dest="allow_transition_aliasing",
+                   action="store_true", default=None,
+                   help="let aliases fall into the transition band (stopband = lower rate - passband)")
+
+
+def spec_from_args(args):
+    data = {field: getattr(args, field) for _, field, _, _ in SPEC_OPTIONS}
+    data["allow_transition_aliasing"] = args.allow_transition_aliasing
+    data = {k: v for k, v in data.items() if v is not None}
+    return spec_from_dict(data, base=preset(args.preset))
+
+
+def _print_json(obj):
+    json.dump(jsonable(obj), sys.stdout, indent=2, allow_nan=False)
+    sys.stdout.write("\n")
+
+
+class ProgressBar:
+    """A one-line bar on stderr, redrawn at most ten times a second."""
+
+    def __init__(self, enabled, label):
+        self.enabled = enabled
+        self.label = label
+        self._last = 0.0
+        self._t0 = time.perf_counter()
+
+    def __call__(self, fraction, done, total):
+        if not self.enabled:
+            return
+        now = time.perf_counter()
+        if fraction < 1.0 and now - self._last < 0.1:
+            return
+        self._last = now
+        width = 30
+        fill = int(round(width * fraction))
+        elapsed = now - self._t0
+        eta = elapsed * (1 - fraction) / fraction if fraction > 0 else float("nan")
+        eta_text = f"{eta:5.1f} s left" if math.isfinite(eta) else "        "
+        sys.stderr.write(f"\r{self.label} [{'#' * fill}{'.' * (width - fill)}] "
+                         f"{100 * fraction:5.1f} % {eta_text}")
+        if fraction >= 1.0:
+            sys.stderr.write("\n")
+        sys.stderr.flush()
+
+
+# ---------------------------------------------------------------- commands
+
+def cmd_design(args):
+    from .dsp.design import design
+    from .dsp.stages import choose_plan
+    spec = spec_from_args(args)
+    d = choose_plan(spec, args.fs_in, args.fs_out) if spec.stages == "auto" \
+        else design(spec, args.fs_in, args.fs_out)
+    figs = d.figures()
+    if args.json:
+        _print_json(figs)
+    else:
+        m = d.measured
+        print(f"{d.fs_in} -> {d.fs_out} Hz: {d.up}/{d.down}, {d.path}, {d.method}")
+        print(f"  numtaps {d.numtaps}, MACs per output sample {d.macs_per_output_sample:g}, "
+              f"{d.mmac_per_second:.2f} MMAC/s per channel, latency {d.latency_ms:.3f} ms")
+        print(f"  measured ripple {m.passband_ripple_db:.3g} dB (limit {d.mask.ripple_db:g}), "
+              f"attenuation {m.stopband_attenuation_db:.1f} dB (needs {d.mask.attenuation_db:g})")
+        print(f"  meets the mask: {'yes' if d.meets_mask else 'NO'}")
+    return 0 if d.meets_mask else EXIT_BAD_INPUT
+
+
+def cmd_plans(args):
+    from .dsp.stages import plan_options
+    spec = spec_from_args(args)
+    single, plans = plan_options(spec, args.fs_in, args.fs_out)
+    if args.json:
+        _print_json({"single": single.figures(), "plans": [p.figures() for p in plans]})
+        return 0
+    print(f"single stage: {single.macs_per_output_sample:g} MACs/output, {single.numtaps} taps")
+    for p in plans:
+        print(f"{p.label:>28}: {p.macs_per_output_sample:8.1f} MACs/output, {p.numtaps:6d} taps, "
+              f"rates {' -> '.join(map(str, p.rates))}, meets mask: {p.meets_mask}")
+    return 0
+
+
+def _delivery_from_args(args):
+    from .pipeline import Delivery
+    return Delivery(bits=args.bits, dither=args.dither, dither_seed=args.seed,
+                    ceiling_dbtp=args.ceiling, loudness_lufs=args.loudness)
+
+
+def cmd_convert(args):
+    from . import pipeline
+    if args.recipe:
+        from . import sheet
+        recipe = sheet.load_recipe(args.recipe)
+        spec, fs_out, delivery = recipe.spec, recipe.fs_out, recipe.delivery
+        blocksize = recipe.block_frames
+    else:
+        if args.fs_out is None:
+            from .dsp.errors import ParameterError
+            raise ParameterError("convert needs --to HZ (or --recipe FILE)", "fs_out")
+        spec, fs_out, delivery = spec_from_args(args), args.fs_out, _delivery_from_args(args)
+        blocksize = args.block_frames
+    bar = ProgressBar(not args.quiet and not args.json, os.path.basename(args.input))
+    result = pipeline.convert_file(args.input, args.output, spec=spec, fs_out=fs_out,
+                                   delivery=delivery, blocksize=blocksize, progress=bar)
+    if args.recipe:
+        recipe.check_source(result)
+    if args.write_recipe or args.sheet:
+        from . import sheet
+        if args.write_recipe:
+            sheet.write_recipe(result, args.write_recipe)
+        if args.sheet:
+            sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
+                              note=args.note)
+    if args.json:
+        _print_json(result.figures())
+    elif not args.quiet:
+        f = result.figures()
+        print(f"wrote {args.output}: {result.frames_out} frames at {result.fs_out} Hz, "
+              f"{result.output_subtype}, gain {result.gain_db:+.2f} dB ({result.gain_reason}), "
+              f"true peak {f['output']['true_peak_dbtp']} dBTP, "
+              f"clipped samples {result.clipped_samples}, {result.seconds:.2f} s")
+    return 0
+
+
+def cmd_audit(args):
+    from .dsp.audit import audit
+    from .dsp.stages import choose_plan
+    spec = spec_from_args(args)
+    d = choose_plan(spec, args.fs_in, args.fs_out)
+    result = audit(d, dither=args.dither, seed=args.seed)
+    figs = result.figures()
+    if args.json:
+        _print_json(figs)
+    else:
+        for row in figs["verdict"]:
+            mark = "ok " if row["passes"] else "FAIL"
+            print(f"{mark} {row['figure']:>28}: {row['measured']} (limit {row['limit']})")
+    return 0
+
+
+def cmd_serve(args):
+    from .server.run import serve
+    return serve(host=args.host, port=args.port, open_browser=not args.no_browser,
+                 debug=args.debug, instance_path=args.instance)
+
+
+def cmd_clean(args):
+    from .jobs import clear_old
+    removed = clear_old(args.instance, older_than_days=args.days)
+    print(f"removed {removed} old files")
+    return 0
+
+
+def build_parser():
+    ap = argparse.ArgumentParser(prog="rateferry",
+                                 description="Sample-rate conversion with a verified filter.")
+    ap.add_argument("--version", action="version", version=f"rateferry {__version__}")
+    sub = ap.add_subparsers(dest="command", required=True)
+
+    p = sub.add_parser("design", help="design and measure the filter for a route")
+    p.add_argument("--from", dest="fs_in", type=int, required=True, help="source rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=int, required=True, help="target rate, Hz")
+    _add_spec_options(p)
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_design)
+
+    p = sub.add_parser("plans", help="multistage plans against the single stage")
+    p.add_argument("--from", dest="fs_in", type=int, required=True)
+    p.add_argument("--to", dest="fs_out", type=int, required=True)
+    _add_spec_options(p)
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_plans)
+
+    p = sub.add_parser("convert", help="convert a file")
+    p.add_argument("input")
+    p.add_argument("output")
+    p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
+    _add_spec_options(p)
+    p.add_argument("--bits", choices=["16", "24", "32f", "64f"], default=None,
+                   help="output word length (default: like the source)")
+    p.add_argument("--dither", choices=["none", "tpdf", "shaped"], default="tpdf",
+                   help="dither for 16/24-bit outputs (default tpdf)")
+    p.add_argument("--seed", type=int, default=0, help="dither seed (default 0)")
+    p.add_argument("--ceiling", type=float, default=None,
+                   help="true-peak ceiling in dBTP (gain applied to stay under it)")
+    p.add_argument("--loudness", type=float, default=None,
+                   help="integrated loudness target in LUFS")
+    p.add_argument("--block-frames", type=int, default=65536, help="frames per block read")
+    p.add_argument("--recipe", help="re-run a recipe (JSON); spec and delivery come from it")
+    p.add_argument("--write-recipe", help="save the recipe of this conversion (JSON)")
+    p.add_argument("--sheet", help="write a design sheet (self-contained HTML)")
+    p.add_argument("--title", default=None, help="design sheet title")
+    p.add_argument("--author", default=None, help="design sheet author")
+    p.add_argument("--note", default=None, help="design sheet note")
+    p.add_argument("--json", action="store_true")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=cmd_convert)
+
+    p = sub.add_parser("audit", help="measure the converter on standard test signals")
+    p.add_argument("--from", dest="fs_in", type=int, required=True)
+    p.add_argument("--to", dest="fs_out", type=int, required=True)
+    _add_spec_options(p)
+    p.add_argument("--dither", choices=["none", "tpdf", "shaped"], default="none")
+    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(func=cmd_audit)
+
+    p = sub.add_parser("serve", help="run the local web app")
+    p.add_argument("--host", default="127.0.0.1")
+    p.add_argument("--port", type=int, default=8765)
+    p.add_argument("--no-browser", action="store_true")
+    p.add_argument("--debug", action="store_true", help="Flask's development server")
+    p.add_argument("--instance", default=None, help="instance folder (data, database)")
+    p.set_defaults(func=cmd_serve)
+
+    p = sub.add_parser("clean", help="remove old uploads and outputs from the instance folder")
+    p.add_argument("--instance", default=None)
+    p.add_argument("--days", type=float, default=7.0)
+    p.set_defaults(func=cmd_clean)
+    return ap
+
+
+def main(argv=None):
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except RateferryError as exc:
+        sys.stderr.write(f"rateferry: error: {exc.message}\n")
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        sys.stderr.write("rateferry: cancelled; no output was written\n")
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

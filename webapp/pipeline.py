@@ -1,0 +1,311 @@
+"""The one conversion pipeline: the CLI, the web app and recipe re-runs all call it.
+
+source file -> probe -> route and design (verified against the mask) -> streaming converter
+-> gain (headroom / loudness policy) -> word length and dither -> atomic output file,
+with BS.1770 loudness and true peak measured on the source and on the delivered output.
+
+When a true-peak ceiling or a loudness target is set, the output is measured in a first pass
+at unity gain; conversion is linear, so the gain that satisfies both bounds follows exactly and
+the second pass writes the file. Memory stays flat: everything streams in blocks.
+"""
+
+from dataclasses import dataclass, asdict, field, replace
+import math
+import os
+import time
+
+import numpy as np
+
+from . import __version__
+from . import media
+from .dsp.design import require_met
+from .dsp.dither import Quantizer
+from .dsp.errors import ParameterError, RateferryError
+from .dsp.loudness import LoudnessMeter, TruePeakMeter
+from .dsp.polyphase import make_converter, output_length
+from .dsp.rates import validate_rate
+from .dsp.spec import Spec
+from .dsp.stages import choose_plan
+
+__all__ = ["Delivery", "Cancelled", "ConversionResult", "convert_file", "DITHERS",
+           "output_name", "plan_for", "BLOCK_FRAMES"]
+
+BLOCK_FRAMES = 65536
+DITHERS = ("none", "tpdf", "shaped")
+
+
+class Cancelled(RateferryError):
+    """The conversion was cancelled; no output was left behind."""
+
+
+@dataclass(frozen=True)
+class Delivery:
+    """How the converted audio leaves the tool.
+
+    bits : "16" | "24" | "32f" | "64f" | None (like the source)
+    dither : "none" | "tpdf" | "shaped" (PCM outputs only; float outputs take none)
+    dither_seed : int, so a re-run is bit-exact
+    ceiling_dbtp : float or None. None reports the true peak only; a number applies a gain
+        (never above 0 dB unless a loudness target asks for it) so the output's true peak stays
+        at or below it. -1 dBTP is common practice for spoken-word delivery.
+    loudness_lufs : float or None. Integrated loudness target (e.g. -16 LUFS, common practice
+        for podcasts); applied together with the ceiling, the lower gain wins.
+    """
+
+    bits: str | None = None
+    dither: str = "tpdf"
+    dither_seed: int = 0
+    ceiling_dbtp: float | None = None
+    loudness_lufs: float | None = None
+
+    def __post_init__(self):
+        if self.dither not in DITHERS:
+            raise ParameterError(f"dither must be one of {', '.join(DITHERS)}, got "
+                                 f"{self.dither!r}", "dither")
+        if not isinstance(self.dither_seed, int) or isinstance(self.dither_seed, bool) \
+                or not 0 <= self.dither_seed < 2**63:
+            raise ParameterError(f"dither_seed must be a whole number from 0 to 2^63-1, got "
+                                 f"{self.dither_seed!r}", "dither_seed")
+        if self.ceiling_dbtp is not None and not (math.isfinite(self.ceiling_dbtp)
+                                                  and -60.0 <= self.ceiling_dbtp <= 0.0):
+            raise ParameterError(f"ceiling_dbtp must be a number from -60 to 0 dBTP, got "
+                                 f"{self.ceiling_dbtp!r}", "ceiling_dbtp")
+        if self.loudness_lufs is not None and not (math.isfinite(self.loudness_lufs)
+                                                   and -70.0 <= self.loudness_lufs <= 0.0):
+            raise ParameterError(f"loudness_lufs must be a number from -70 to 0 LUFS, got "
+                                 f"{self.loudness_lufs!r}", "loudness_lufs")
+
+    def to_dict(self):
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class ConversionResult:
+    """Everything a report, a design sheet or a recipe needs about one conversion."""
+
+    source_path: str
+    output_path: str
+    fs_in: int
+    fs_out: int
+    channels: int
+    frames_in: int
+    frames_out: int
+    seconds: float
+    spec: Spec
+    delivery: Delivery
+    design: object = field(repr=False)
+    source_probe: object = field(repr=False)
+    output_format: str = ""
+    output_subtype: str = ""
+    bits: str | None = None
+    gain_db: float = 0.0
+    gain_reason: str = ""
+    source_meters: dict = field(default_factory=dict)
+    output_meters: dict = field(default_factory=dict)
+    clipped_samples: int = 0
+    passes: int = 1
+    source_sha256: str = ""
+    output_sha256: str = ""
+    version: str = __version__
+
+    def figures(self):
+        d = self.design.figures()
+        d.update(
+            frames_in=self.frames_in, frames_out=self.frames_out, seconds=self.seconds,
+            channels=self.channels, output_format=self.output_format,
+            output_subtype=self.output_subtype, bits=self.bits, gain_db=self.gain_db,
+            gain_reason=self.gain_reason, passes=self.passes,
+            source=dict(self.source_meters), output=dict(self.output_meters,
+                                                         clipped_samples=self.clipped_samples),
+            clipped_samples=self.clipped_samples, delivery=self.delivery.to_dict(),
+            source_sha256=self.source_sha256, output_sha256=self.output_sha256,
+            version=self.version,
+        )
+        return d
+
+
+def plan_for(spec, fs_in, fs_out):
+    """The verified design (or multistage plan) a conversion runs; raises when the mask fails."""
+    plan = choose_plan(spec, fs_in, validate_rate(fs_out, field="fs_out"))
+    if getattr(plan, "stages", None) is None:
+        require_met(plan)
+    elif not plan.meets_mask:
+        raise ParameterError("the multistage plan does not meet the mask", "stages")
+    return plan
+
+
+def output_name(stem, fs_out, bits, ext):
+    """A sensible download name: ``<stem>_48k_16bit.flac`` (``_44k1`` for 44100 Hz)."""
+    k = fs_out / 1000
+    rate = f"{int(k)}k" if fs_out % 1000 == 0 else f"{k:g}".replace(".", "k")
+    word = {"16": "16bit", "24": "24bit", "32f": "32float", "64f": "64float"}.get(bits or "", "")
+    parts = [stem, rate] + ([word] if word else [])
+    return "_".join(parts) + ext
+
+
+class _Meters:
+    def __init__(self, rate, channels):
+        self.loud = LoudnessMeter(rate_hz=rate, channels=channels)
+        self.peak = TruePeakMeter(rate_hz=rate, channels=channels)
+
+    def process(self, x):
+        self.loud.process(x)
+        self.peak.process(x)
+
+    def result(self):
+        lr, pr = self.loud.result(), self.peak.result()
+        return dict(integrated_lufs=_finite(lr.integrated_lufs),
+                    loudness_range_lu=_finite(lr.loudness_range_lu),
+                    true_peak_dbtp=_finite(pr.true_peak_dbtp),
+                    sample_peak_dbfs=_finite(pr.sample_peak_dbfs))
+
+
+def _finite(v):
+    v = float(v)
+    return v if math.isfinite(v) else None
+
+
+def _gain_for(delivery, out_meters):
+    """Gain (dB) that meets the ceiling and/or the loudness target; the reason in words."""
+    reasons = []
+    gains = []
+    if delivery.loudness_lufs is not None:
+        lufs = out_meters["integrated_lufs"]
+        if lufs is None:
+            raise ParameterError("loudness_lufs can't be applied: the output is silent (no "
+                                 "gated loudness)", "loudness_lufs")
+        gains.append((delivery.loudness_lufs - lufs, "loudness target"))
+    if delivery.ceiling_dbtp is not None:
+        tp = out_meters["true_peak_dbtp"]
+        g = 0.0 if tp is None else delivery.ceiling_dbtp - tp
+        if delivery.loudness_lufs is None:
+            g = min(g, 0.0)   # a ceiling alone only ever lowers the level
+        gains.append((g, "true-peak ceiling"))
+    if not gains:
+        return 0.0, "report only"
+    g, why = min(gains)
+    if len(gains) == 2:
+        other = max(gains)[1]
+        reasons.append(f"{why} won (the {other} alone would give {max(gains)[0]:+.2f} dB)")
+    else:
+        reasons.append(why)
+    return float(g), "; ".join(reasons)
+
+
+def _check_cancel(cancel):
+    if cancel is not None and cancel.is_set():
+        raise Cancelled("the conversion was cancelled; no output was written", "conversion")
+
+
+def convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None,
+                 blocksize=BLOCK_FRAMES, progress=None, cancel=None, tags_comment=True):
+    """Convert ``source`` to ``target`` at ``fs_out`` Hz through the whole delivery chain.
+
+    Parameters
+    ----------
+    source, target : path
+    spec : Spec, optional (default Spec())
+    fs_out : int
+    delivery : Delivery, optional
+    plan : Design or Plan, optional
+        A design already made for this route (the web app reuses its cached design).
+    blocksize : int
+        Frames per block read; the output is bit-identical for a given blocksize and seed.
+    progress : callable(fraction, frames_done, frames_total), optional
+    cancel : threading.Event, optional
+        When set, the conversion stops at the next block, leaving no output behind.
+
+    Returns
+    -------
+    ConversionResult
+
+    Raises
+    ------
+    ParameterError, AudioFileError, Cancelled
+    """
+    t0 = time.perf_counter()
+    spec = spec or Spec()
+    delivery = delivery or Delivery()
+    src = media.probe(source)
+    fs_in = src.rate_hz
+    fs_out = validate_rate(fs_out, field="fs_out")
+    media.refuse_same_file(source, target)
+    frames_out = output_length(src.frames, fs_out, fs_in) if fs_in != fs_out else src.frames
+    out_plan = media.output_plan(target, rate_hz=fs_out, channels=src.channels,
+                                 bits=delivery.bits, source_probe=src,
+                                 frames_estimate=frames_out)
+    pcm = out_plan.bits in ("16", "24")
+    if not pcm:
+        # float and lossy outputs are not quantised here: no dither applies (recorded as none)
+        delivery = replace(delivery, dither="none")
+    design = plan if plan is not None else plan_for(spec, fs_in, fs_out)
+    dtype = getattr(design, "spec", spec).arithmetic
+    needs_first_pass = delivery.ceiling_dbtp is not None or delivery.loudness_lufs is not None
+    passes = 2 if needs_first_pass else 1
+    total_work = src.frames * passes
+    done = 0
+
+    def report(frames):
+        if progress is not None:
+            progress(min(1.0, frames / max(total_work, 1)), frames, total_work)
+
+    source_meters = _Meters(fs_in, src.channels)
+    gain_db, gain_reason = 0.0, "report only"
+    if needs_first_pass:
+        conv = make_converter(design, channels=src.channels, dtype=dtype)
+        first = _Meters(fs_out, src.channels)
+        for block in media.read_blocks(source, blocksize=blocksize):
+            _check_cancel(cancel)
+            source_meters.process(block)
+            first.process(conv.process(block))
+            done += block.shape[0]
+            report(done)
+        first.process(conv.flush())
+        gain_db, gain_reason = _gain_for(delivery, first.result())
+    gain = 10 ** (gain_db / 20.0)
+
+    quant = None
+    if pcm:
+        quant = Quantizer(bits=out_plan.bits, dither=delivery.dither, seed=delivery.dither_seed,
+                          channels=src.channels, rate_hz=fs_out)
+    scale = {"16": 2.0**15, "24": 2.0**31}.get(out_plan.bits)
+    out_meters = _Meters(fs_out, src.channels)
+    conv = make_converter(design, channels=src.channels, dtype=dtype)
+    comment = media.converted_comment(fs_in, fs_out) if tags_comment else None
+
+    def deliver(y, writer):
+        if y.shape[0] == 0:
+            return
+        if gain != 1.0:
+            y = y * gain
+        if quant is not None:
+            codes = quant.process(y)
+            out_meters.process(codes.astype(np.float64) / scale)
+            writer.write(codes)
+        else:
+            out_meters.process(y)
+            writer.write(y)
+
+    with media.AtomicWriter(target, out_plan, tags=src.tags, add_comment=comment,
+                            source=source) as writer:
+        for block in media.read_blocks(source, blocksize=blocksize):
+            _check_cancel(cancel)
+            if not needs_first_pass:
+                source_meters.process(block)
+            deliver(conv.process(block), writer)
+            done += block.shape[0]
+            report(done)
+        _check_cancel(cancel)
+        deliver(conv.flush(), writer)
+    report(total_work)
+    out_sha = media.sha256_file(target)
+    return ConversionResult(
+        source_path=os.fspath(source), output_path=os.fspath(target), fs_in=fs_in,
+        fs_out=fs_out, channels=src.channels, frames_in=src.frames, frames_out=conv.frames_out,
+        seconds=time.perf_counter() - t0, spec=getattr(design, "spec", spec),
+        delivery=delivery, design=design, source_probe=src, output_format=out_plan.format,
+        output_subtype=out_plan.subtype, bits=out_plan.bits, gain_db=gain_db,
+        gain_reason=gain_reason, source_meters=source_meters.result(),
+        output_meters=out_meters.result(),
+        clipped_samples=int(quant.clipped_samples) if quant is not None else 0,
+        passes=passes, source_sha256=media.sha256_file(source), output_sha256=out_sha)
