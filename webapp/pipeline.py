@@ -19,7 +19,7 @@ import numpy as np
 from . import __version__
 from . import media
 from .dsp.design import require_met
-from .dsp.dither import Quantizer
+from .dsp.dither import Quantizer, noise_transfer_taps
 from .dsp.errors import ParameterError, RateferryError
 from .dsp.loudness import LoudnessMeter, TruePeakMeter
 from .dsp.polyphase import make_converter, output_length
@@ -165,8 +165,13 @@ def _finite(v):
     return v if math.isfinite(v) else None
 
 
-def _gain_for(delivery, out_meters):
-    """Gain (dB) that meets the ceiling and/or the loudness target; the reason in words."""
+def _gain_for(delivery, out_meters, bits, rate_hz):
+    """Gain (dB) that meets the ceiling and/or the loudness target; the reason in words.
+
+    For PCM outputs the ceiling keeps room for the requantisation error: TPDF moves a sample by
+    at most 1 LSB and rounding by half of one (1.5 LSB); with noise shaping the error passes
+    through the noise transfer function, whose taps bound it by 1.5 LSB * sum |ntf|.
+    """
     reasons = []
     gains = []
     if delivery.loudness_lufs is not None:
@@ -177,7 +182,11 @@ def _gain_for(delivery, out_meters):
         gains.append((delivery.loudness_lufs - lufs, "loudness target"))
     if delivery.ceiling_dbtp is not None:
         tp = out_meters["true_peak_dbtp"]
-        g = 0.0 if tp is None else delivery.ceiling_dbtp - tp
+        lsb = {"16": 2.0**-15, "24": 2.0**-23}.get(bits, 0.0) * 1.5
+        if delivery.dither == "shaped" and lsb:
+            lsb *= float(np.sum(np.abs(noise_transfer_taps(rate_hz))))
+        ceiling = 20 * math.log10(max(10 ** (delivery.ceiling_dbtp / 20.0) - lsb, 1e-12))
+        g = 0.0 if tp is None else ceiling - tp
         if delivery.loudness_lufs is None:
             g = min(g, 0.0)   # a ceiling alone only ever lowers the level
         gains.append((g, "true-peak ceiling"))
@@ -261,7 +270,7 @@ def convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None,
             done += block.shape[0]
             report(done)
         first.process(conv.flush())
-        gain_db, gain_reason = _gain_for(delivery, first.result())
+        gain_db, gain_reason = _gain_for(delivery, first.result(), out_plan.bits, fs_out)
     gain = 10 ** (gain_db / 20.0)
 
     quant = None

@@ -377,6 +377,14 @@ def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
         path = "arbitrary"
         phases = interpolation_phases(mask.passband_hz, rt.fs_in, mask.attenuation_db)
         rate = float(rt.fs_in * phases)
+        a_design = max(mask.attenuation_db,
+                       -20 * math.log10(min(mask.passband_delta, mask.stopband_delta)))
+        est_arb = _odd(kaiser_numtaps(a_design, (mask.stopband_hz - mask.passband_hz) / (rate / 2)))
+        if est_arb > MAX_NUMTAPS:
+            raise ParameterError(
+                f"the mask needs about {est_arb} taps in a {phases}-phase table (limit "
+                f"{MAX_NUMTAPS}); widen the transition band ({mask.passband_hz:g} to "
+                f"{mask.stopband_hz:g} Hz) or lower the attenuation", "stopband_hz")
         path_reason = (f"the exact {rt.up}/{rt.down} bank would need about {est} taps (limit "
                        f"{max_bank_taps}); bandlimited interpolation with a {phases}-phase table "
                        f"and linear interpolation between phases is used instead")
@@ -386,8 +394,8 @@ def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
         if spec.method != "auto":
             raise ParameterError(
                 f"method {spec.method} can't design the {int(rate)} Hz prototype of the "
-                f"arbitrary-ratio path (it needs about {est * phases // rt.up} taps); use auto or "
-                "kaiser", "method")
+                f"arbitrary-ratio path (it needs about {est_arb} taps); use auto or kaiser",
+                "method")
         method, method_reason = "kaiser", "long arbitrary-path prototype: Kaiser window design"
 
     minimum = spec.phase == "minimum"
