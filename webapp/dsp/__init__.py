@@ -1,0 +1,36 @@
+"""The DSP core of Rateferry: numpy and scipy only, no I/O, no web.
+
+A catalogue; each public name lives in a private-purpose module:
+
+- rates:     Route, route, validate_rate
+- spec:      Spec, Mask, PRESETS, preset, spec_from_dict
+- design:    Design, Measured, design, require_met, kaiser_beta, kaiser_numtaps,
+             herrmann_numtaps, bellanger_numtaps
+- stages:    Plan, plan_options, choose_plan
+- polyphase: PolyphaseConverter, ArbitraryConverter, CascadeConverter, make_converter,
+             convert, output_length
+- spectrum:  welch_spectrum, dense_response, response_at
+- dither:    Quantizer
+- loudness:  LoudnessMeter, TruePeakMeter, integrated_loudness, true_peak, k_weighting
+- audit:     audit (imported from webapp.dsp.audit)
+- errors:    RateferryError, ParameterError, AudioFileError
+"""
+
+from .errors import AudioFileError, ParameterError, RateferryError
+from .rates import Route, route, validate_rate
+from .spec import PRESETS, Mask, Spec, preset, spec_from_dict
+from .design import (Design, Measured, bellanger_numtaps, design, herrmann_numtaps,
+                     kaiser_beta, kaiser_numtaps, require_met)
+from .stages import Plan, choose_plan, plan_options
+from .polyphase import (ArbitraryConverter, CascadeConverter, PolyphaseConverter, convert,
+                        make_converter, output_length)
+from .spectrum import dense_response, response_at, welch_spectrum
+
+__all__ = [
+    "AudioFileError", "ParameterError", "RateferryError", "Route", "route", "validate_rate",
+    "PRESETS", "Mask", "Spec", "preset", "spec_from_dict", "Design", "Measured",
+    "bellanger_numtaps", "design", "herrmann_numtaps", "kaiser_beta", "kaiser_numtaps",
+    "require_met", "Plan", "choose_plan", "plan_options", "ArbitraryConverter",
+    "CascadeConverter", "PolyphaseConverter", "convert", "make_converter", "output_length",
+    "dense_response", "response_at", "welch_spectrum",
+]
