@@ -248,6 +248,9 @@ def convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None,
         # float and lossy outputs are not quantised here: no dither applies (recorded as none)
         delivery = replace(delivery, dither="none")
     design = plan if plan is not None else plan_for(spec, fs_in, fs_out)
+    if (design.fs_in, design.fs_out) != (fs_in, fs_out):
+        raise ParameterError(f"the design converts {design.fs_in} -> {design.fs_out} Hz but the "
+                             f"source is {fs_in} Hz and the target {fs_out} Hz", "design")
     dtype = getattr(design, "spec", spec).arithmetic
     needs_first_pass = delivery.ceiling_dbtp is not None or delivery.loudness_lufs is not None
     passes = 2 if needs_first_pass else 1
