@@ -66,3 +66,19 @@ def test_plans_lists_cheaper_multistage_plans(capsys):
     d = json.loads(out)
     assert code == 0 and d["plans"]
     assert d["plans"][0]["macs_per_output_sample"] < d["single"]["macs_per_output_sample"] / 5
+
+
+def test_audit_json_has_the_contract_keys_and_measures_the_mask(capsys):
+    code, out, _ = run(capsys, "audit", "--from", "48000", "--to", "16000", "--attenuation",
+                       "100", "--ripple", "0.05", "--json")
+    d = json.loads(out)
+    assert code == 0
+    for key in ("passband_deviation_db", "worst_alias_db", "thd_n_db", "noise_floor_dbfs",
+                "group_delay_ms", "verdict"):
+        assert key in d
+    assert d["worst_alias_db"] <= -100.0 and abs(d["passband_deviation_db"]) <= 0.05
+    # a linear-phase design delays by (numtaps - 1) / 2 samples at the filter rate
+    code, out, _ = run(capsys, "design", "--from", "48000", "--to", "16000", "--attenuation",
+                       "100", "--ripple", "0.05", "--json")
+    design = json.loads(out)
+    assert d["group_delay_ms"] == pytest.approx(design["latency_ms"], rel=1e-3)

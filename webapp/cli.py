@@ -186,10 +186,24 @@ def cmd_audit(args):
     if args.json:
         _print_json(figs)
     else:
+        print(f"{d.fs_in} -> {d.fs_out} Hz, measured on the converter's output:")
         for row in figs["verdict"]:
-            mark = "ok " if row["passes"] else "FAIL"
-            print(f"{mark} {row['figure']:>28}: {row['measured']} (limit {row['limit']})")
-    return 0
+            mark = "ok  " if row["passes"] else "FAIL"
+            unit = row.get("unit") or ""
+            print(f"  {mark} {row['figure']:>22}: {_num(row['measured'])} {unit} "
+                  f"(limit {_num(row['limit'])} {unit})")
+        print(f"  THD+N {_num(figs['thd_n_db'])} dB, noise floor "
+              f"{_num(figs['noise_floor_dbfs'])} dBFS, group delay "
+              f"{_num(figs['group_delay_ms'])} ms")
+    return 0 if figs.get("passes", True) else EXIT_BAD_INPUT
+
+
+def _num(v):
+    if v is None:
+        return "-"
+    if isinstance(v, float):
+        return f"{v:.4g}"
+    return str(v)
 
 
 def cmd_serve(args):
