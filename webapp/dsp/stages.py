@@ -167,8 +167,10 @@ def _build(spec, mask, factors, rates, specs):
                 numtaps=sum(s.numtaps for s in stages))
 
 
-def plan_options(spec, fs_in, fs_out, *, max_stages=3, candidates=MAX_CANDIDATES):
+def plan_options(spec, fs_in, fs_out, *, max_stages=3, candidates=MAX_CANDIDATES, single=None):
     """The single-stage design and the cheapest multistage plans, each verified.
+
+    ``single`` may pass the single-stage design already made for this spec and route.
 
     Returns
     -------
@@ -177,7 +179,8 @@ def plan_options(spec, fs_in, fs_out, *, max_stages=3, candidates=MAX_CANDIDATES
         Sorted by MACs per output sample; empty when L and M offer no useful factoring
         (prime factors, or every factoring drops below the lower rate).
     """
-    single = design(spec, fs_in, fs_out)
+    if single is None:
+        single = design(spec, fs_in, fs_out)
     rt = make_route(fs_in, fs_out)
     mask = single.mask
     scored = []

@@ -1,0 +1,714 @@
+"""The JSON API (see API.md). Views parse, call the core or the store, and serialise."""
+
+import json
+import math
+import os
+import re
+import secrets
+import time
+
+from flask import Blueprint, Response, current_app, request, send_file
+
+from webapp import __version__, media
+from webapp.cli import jsonable
+from webapp.dsp import spec as spec_module
+from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
+from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
+from webapp.jobs import ACTIVE_STATUSES, FINAL_STATUSES, new_id
+from webapp.pipeline import DITHERS, Delivery, convert_file, output_name
+
+from . import analysis
+from .db import get_db, state
+from .errors import ApiError
+from .library import measure, probe_figures
+from .params import (choice, conversion_or_404, integer, json_body, number, rate,
+                     recording_or_404, spec_input)
+from .uploads import UPLOAD_EXTENSIONS, discard_incoming, display_name, take_upload, \
+    upload_extension
+
+__all__ = ["bp", "URLS", "COMMON_RATES_HZ", "OUTPUT_FORMAT_EXTENSIONS"]
+
+bp = Blueprint("api", __name__, url_prefix="/api")
+
+#: URL templates the page reads from its config element.
+URLS = {
+    "health": "/api/health",
+    "options": "/api/options",
+    "recordings": "/api/recordings",
+    "recording": "/api/recordings/{id}",
+    "recording_audio": "/api/recordings/{id}/audio",
+    "designs": "/api/designs",
+    "design": "/api/designs/{id}",
+    "design_plans": "/api/designs/{id}/plans",
+    "audits": "/api/audits",
+    "spectra": "/api/spectra",
+    "conversions": "/api/conversions",
+    "conversion": "/api/conversions/{id}",
+    "conversion_events": "/api/conversions/{id}/events",
+    "conversion_cancel": "/api/conversions/{id}/cancel",
+    "conversion_download": "/api/conversions/{id}/download",
+    "conversion_audio": "/api/conversions/{id}/audio",
+    "conversion_sheet": "/api/conversions/{id}/sheet",
+    "conversion_recipe": "/api/conversions/{id}/recipe",
+    "blind_trials": "/api/conversions/{id}/blind_trials",
+    "recipes": "/api/recipes",
+    "renditions": "/api/renditions",
+    "rendition_audio": "/api/renditions/{id}/{kind}",
+    "clear": "/api/maintenance/clear",
+    "plotly": "/static/vendor/plotly.min.js",
+}
+
+COMMON_RATES_HZ = (8000, 11025, 16000, 22050, 24000, 32000, 44100, 48000, 88200, 96000,
+                   176400, 192000)
+#: Output format names the page offers -> file extension.
+OUTPUT_FORMAT_EXTENSIONS = {"flac": ".flac", "wav": ".wav", "aiff": ".aiff", "w64": ".w64",
+                            "rf64": ".rf64", "ogg": ".ogg", "opus": ".opus"}
+_MIMETYPES = {"WAV": "audio/wav", "RF64": "audio/wav", "W64": "audio/x-w64",
+              "FLAC": "audio/flac", "OGG": "audio/ogg", "AIFF": "audio/aiff",
+              "MPEG": "audio/mpeg", "CAF": "audio/x-caf", "AU": "audio/basic"}
+RENDITION_KINDS = ("original", "converted", "difference")
+_STEM_UNSAFE = re.compile(r"[^\w.\- ]+")
+
+
+def _url(name, **parts):
+    text = URLS[name]
+    for key, value in parts.items():
+        text = text.replace("{" + key + "}", value)
+    return text
+
+
+def _json(body, status=200, *, clean=False):
+    """A JSON response; ``clean`` bodies are plain JSON types already (cached views)."""
+    response = current_app.response_class(
+        json.dumps(body if clean else jsonable(body), allow_nan=False, separators=(",", ":")),
+        status=status, mimetype="application/json")
+    return response
+
+
+def _stem(name):
+    stem = os.path.splitext(display_name(name))[0]
+    stem = _STEM_UNSAFE.sub("_", stem).strip(" ._") or "recording"
+    return stem[:120]
+
+
+# ---------------------------------------------------------------------------------------------
+# health and options
+
+@bp.get("/health")
+def health():
+    return _json(dict(status="ok", version=__version__))
+
+
+@bp.get("/options")
+def options():
+    presets = {name: dict(label=p["label"], about=p["about"], spec=p["spec"].to_dict())
+               for name, p in spec_module.PRESETS.items()}
+    fields = dict(
+        phase=dict(choices=list(spec_module.PHASES)),
+        method=dict(choices=list(spec_module.METHODS)),
+        arithmetic=dict(choices=list(spec_module.ARITHMETICS)),
+        stages=dict(choices=list(spec_module.STAGE_CHOICES)),
+        ripple_db=dict(min=spec_module.MIN_RIPPLE_DB, max=spec_module.MAX_RIPPLE_DB, unit="dB"),
+        attenuation_db=dict(min=spec_module.MIN_ATTENUATION_DB,
+                            max=spec_module.MAX_ATTENUATION_DB, unit="dB"),
+        passband_fraction=dict(min=0.05, max=0.995, unit=""),
+        passband_hz=dict(min=0, unit="Hz", nullable=True),
+        stopband_hz=dict(min=0, unit="Hz", nullable=True),
+        allow_transition_aliasing=dict(type="bool"),
+    )
+    return _json(dict(
+        presets=presets, default_preset=spec_module.DEFAULT_PRESET, spec_fields=fields,
+        float32_limit_db=spec_module.FLOAT32_LIMIT_DB,
+        common_rates_hz=list(COMMON_RATES_HZ),
+        rate_limits_hz=dict(min=MIN_RATE_HZ, max=MAX_RATE_HZ),
+        word_lengths=list(media.WORD_LENGTHS), dithers=list(DITHERS),
+        output_formats=list(OUTPUT_FORMAT_EXTENSIONS),
+        upload_extensions=sorted(UPLOAD_EXTENSIONS),
+        max_upload_bytes=current_app.config["MAX_CONTENT_LENGTH"],
+        excerpt_max_s=current_app.config["EXCERPT_MAX_S"],
+        rendition_min_s=analysis.RENDITION_MIN_S,
+        playback_preset=analysis.PLAYBACK_PRESET,
+    ))
+
+
+# ---------------------------------------------------------------------------------------------
+# recordings
+
+def _public_recording(rec):
+    keys = ("id", "name", "demo", "rate_hz", "channels", "frames", "duration_s", "format",
+            "subtype", "size_bytes", "tags", "integrated_lufs", "loudness_range_lu",
+            "true_peak_dbtp", "sample_peak_dbfs", "analysis", "analysis_note", "analysis_error",
+            "created")
+    out = {k: rec.get(k) for k in keys}
+    out["audio_url"] = _url("recording_audio", id=rec["id"])
+    return out
+
+
+def _with_name(exc, generated, name, field="file"):
+    """The core's error about a stored file, told with the user's file name."""
+    message = exc.message.replace(os.path.basename(generated), name)
+    return type(exc)(message, field if exc.field in (None, "path") else exc.field)
+
+
+def _file_field():
+    """The multipart field ``file`` of the request."""
+    storage = request.files.get("file")
+    if storage is None:
+        raise ParameterError("the upload must be a multipart form with a field 'file'", "file")
+    return storage
+
+
+@bp.post("/recordings")
+def upload_recording():
+    try:
+        storage = _file_field()
+        name = display_name(storage.filename)
+        ext = upload_extension(storage.filename)
+        st = state()
+        target = st.store.upload_path(ext)
+        size = take_upload(request, storage, target)
+    finally:
+        discard_incoming(request)
+    if size == 0:
+        os.unlink(target)
+        raise AudioFileError(f"cannot read '{name}': the file is empty (0 bytes)", "file")
+    try:
+        info = media.probe(target)
+        if info.duration_s <= current_app.config["ANALYSE_SYNC_MAX_S"]:
+            meters = measure(target, info)
+        else:
+            meters = dict(analysis="pending")
+    except RateferryError as exc:
+        os.unlink(target)
+        raise _with_name(exc, target, name) from None
+    rec = get_db().add_recording(name=name, path=target, owned=True, demo=False,
+                                 probe=probe_figures(info), meters=meters)
+    if meters["analysis"] == "pending":
+        st.background.submit(_measure_later, st.store, rec["id"], target, info, name)
+    return _json(_public_recording(rec), 201)
+
+
+def _measure_later(store, recording_id, path, info, name):
+    try:
+        meters = measure(path, info)
+    except RateferryError as exc:
+        err = _with_name(exc, path, name)
+        meters = dict(analysis="failed", analysis_error=dict(message=err.message,
+                                                             field=err.field))
+    with store.open() as db:
+        db.update_meters(recording_id, meters)
+
+
+@bp.get("/recordings")
+def list_recordings():
+    return _json(dict(recordings=[_public_recording(r) for r in get_db().list_recordings()]))
+
+
+@bp.get("/recordings/<recording_id>")
+def get_recording(recording_id):
+    return _json(_public_recording(recording_or_404(recording_id)))
+
+
+@bp.get("/recordings/<recording_id>/audio")
+def recording_audio(recording_id):
+    rec = recording_or_404(recording_id)
+    return send_file(rec["path"], mimetype=_MIMETYPES.get(rec["format"],
+                                                          "application/octet-stream"),
+                     conditional=True, download_name=rec["name"])
+
+
+@bp.delete("/recordings/<recording_id>")
+def delete_recording(recording_id):
+    rec = recording_or_404(recording_id)
+    if rec["demo"]:
+        raise ApiError(409, "the demo recording can't be deleted", "recording_id")
+    db = get_db()
+    if any(c["status"] in ACTIVE_STATUSES for c in db.list_conversions(recording_id=rec["id"])):
+        raise ApiError(409, "the recording has a conversion in progress; cancel it first",
+                       "recording_id")
+    db.delete_recording(rec["id"])
+    return _json(dict(deleted=rec["id"]))
+
+
+# ---------------------------------------------------------------------------------------------
+# designs, audits, spectra
+
+def _store_design(spec, fs_in, fs_out, figures):
+    return get_db().put_design(key=analysis.design_key(spec, fs_in, fs_out), fs_in=fs_in,
+                               fs_out=fs_out, spec=spec.to_dict(), figures=jsonable(figures))
+
+
+def _design_body(spec, fs_in, fs_out, design_id, want_plans, t0):
+    cache = state().cache
+    view, cached = cache.view(spec, fs_in, fs_out)
+    if design_id is None:
+        design_id = _store_design(spec, fs_in, fs_out, view["figures"])
+    # the plans start only now, so they don't slow the design itself down; without
+    # want_plans they are ready a little later at GET /api/designs/<id>/plans
+    future = cache.plans_async(spec, fs_in, fs_out)
+    body = dict(id=design_id)
+    body.update(view)
+    body["plans_url"] = _url("design_plans", id=design_id)
+    if want_plans:
+        plans, plans_cached = _plans_or_error(future)
+        cached = cached and plans_cached
+        body["plans"] = plans
+    body["timing"] = dict(design_ms=view["figures"]["design_ms"],
+                          total_ms=(time.perf_counter() - t0) * 1000.0, cached=cached)
+    return body
+
+
+def _plans_or_error(future):
+    try:
+        return future.result()
+    except RateferryError as exc:
+        return dict(single=None, options=[], chosen=None,
+                    error=dict(message=exc.message, field=exc.field)), False
+
+
+def _bool(data, name, default):
+    value = data.get(name, default)
+    if not isinstance(value, bool):
+        raise ParameterError(f"{name} must be true or false, got {value!r}", name)
+    return value
+
+
+@bp.post("/designs")
+def create_design():
+    t0 = time.perf_counter()
+    data = json_body()
+    fs_in = None
+    if data.get("recording_id") is not None:
+        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
+    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=fs_in)
+    return _json(_design_body(spec, fs_in, fs_out, design_id, _bool(data, "plans", True), t0),
+                 clean=True)
+
+
+@bp.get("/designs/<design_id>")
+def get_design(design_id):
+    t0 = time.perf_counter()
+    spec, fs_in, fs_out, design_id = spec_input({"design_id": design_id})
+    want = request.args.get("plans", "true").lower() not in ("0", "false", "no")
+    return _json(_design_body(spec, fs_in, fs_out, design_id, want, t0), clean=True)
+
+
+@bp.get("/designs/<design_id>/plans")
+def get_design_plans(design_id):
+    t0 = time.perf_counter()
+    spec, fs_in, fs_out, design_id = spec_input({"design_id": design_id})
+    plans, cached = _plans_or_error(state().cache.plans_async(spec, fs_in, fs_out))
+    return _json(dict(id=design_id, plans=plans,
+                      timing=dict(total_ms=(time.perf_counter() - t0) * 1000.0, cached=cached)))
+
+
+@bp.post("/audits")
+def create_audit():
+    t0 = time.perf_counter()
+    data = json_body()
+    fs_in = None
+    if data.get("recording_id") is not None:
+        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
+    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=fs_in)
+    dither = choice(data, "dither", DITHERS, default="none")
+    seed = integer(data, "seed", default=0, low=0, high=2**63 - 1)
+    try:
+        from webapp.dsp.audit import audit
+    except ImportError:
+        raise ApiError(503, "the audit module is not installed yet", "audit") from None
+    cache = state().cache
+    plan = cache.route_plan(spec, fs_in, fs_out)
+    if design_id is None:
+        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
+    figures, cached = cache.memo("audit", (spec, fs_in, fs_out, dither, seed),
+                                 lambda: jsonable(audit(plan, dither=dither,
+                                                        seed=seed).figures()))
+    return _json(dict(design_id=design_id, figures=figures,
+                      timing=dict(audit_ms=(time.perf_counter() - t0) * 1000.0, cached=cached)))
+
+
+@bp.post("/spectra")
+def create_spectra():
+    data = json_body()
+    rec = recording_or_404(data.get("recording_id"))
+    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
+    max_s = current_app.config["EXCERPT_MAX_S"]
+    start_s = number(data, "start_s", low=0.0, unit="s")
+    length_s = number(data, "length_s", low=0.0, high=max_s, unit="s")
+    log_axis = _bool(data, "log_axis", False)
+    cache = state().cache
+    plan = cache.route_plan(spec, fs_in, fs_out)
+    if design_id is None:
+        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
+    info = media.probe(rec["path"])
+    view, cached = cache.memo(
+        "spectra", (rec["id"], spec, fs_in, fs_out, start_s, length_s, log_axis),
+        lambda: analysis.spectra_view(rec["path"], info, plan, start_s=start_s,
+                                      length_s=length_s, log_axis=log_axis, max_length_s=max_s))
+    body = dict(view, design_id=design_id, recording_id=rec["id"],
+                meets_mask=bool(plan.meets_mask), cached=cached)
+    return _json(body)
+
+
+# ---------------------------------------------------------------------------------------------
+# conversions
+
+def _delivery(data):
+    if data is None:
+        data = {}
+    if not isinstance(data, dict):
+        raise ParameterError("delivery must be a JSON object", "delivery")
+    known = ("bits", "dither", "dither_seed", "ceiling_dbtp", "loudness_lufs")
+    unknown = sorted(set(data) - set(known))
+    if unknown:
+        raise ParameterError(f"unknown delivery field {unknown[0]!r}; known: {', '.join(known)}",
+                             unknown[0])
+    bits = data.get("bits")
+    if bits is not None:
+        bits = str(bits) if isinstance(bits, (str, int)) and not isinstance(bits, bool) else bits
+        if bits not in media.WORD_LENGTHS:
+            raise ParameterError(f"bits must be one of {', '.join(media.WORD_LENGTHS)} (or null "
+                                 f"for like the source), got {data.get('bits')!r}", "bits")
+    return Delivery(
+        bits=bits,
+        dither=choice(data, "dither", DITHERS, default="tpdf"),
+        dither_seed=integer(data, "dither_seed", default=0, low=0, high=2**63 - 1),
+        ceiling_dbtp=number(data, "ceiling_dbtp", unit="dBTP"),
+        loudness_lufs=number(data, "loudness_lufs", unit="LUFS"),
+    )
+
+
+def _public_conversion(conv, *, figures=True):
+    out = {k: conv[k] for k in ("id", "recording_id", "design_id", "status", "cancel_requested",
+                                "fs_in", "fs_out", "format", "spec", "delivery", "progress",
+                                "error", "download_name", "created", "started", "finished")}
+    if figures:
+        out["figures"] = conv["figures"]
+    cid = conv["id"]
+    out["urls"] = dict(self=_url("conversion", id=cid), events=_url("conversion_events", id=cid),
+                       cancel=_url("conversion_cancel", id=cid))
+    if conv["status"] == "done":
+        out["urls"].update(download=_url("conversion_download", id=cid),
+                           audio=_url("conversion_audio", id=cid),
+                           sheet=_url("conversion_sheet", id=cid),
+                           recipe=_url("conversion_recipe", id=cid),
+                           blind_trials=_url("blind_trials", id=cid))
+    return out
+
+
+@bp.post("/conversions")
+def create_conversion():
+    data = json_body()
+    rec = recording_or_404(data.get("recording_id"))
+    if rec.get("analysis") == "failed":
+        err = rec.get("analysis_error") or {}
+        raise ParameterError(err.get("message", "the recording can't be read"), "recording_id")
+    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
+    fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
+    ext = OUTPUT_FORMAT_EXTENSIONS[fmt]
+    delivery = _delivery(data.get("delivery"))
+    st = state()
+    plan = st.cache.conversion_plan(spec, fs_in, fs_out)
+    if design_id is None:
+        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
+    info = media.probe(rec["path"])
+    cid = new_id()
+    target = st.store.output_path(cid, ext)
+    frames_out = -(-info.frames * plan.up // plan.down)
+    out_plan = media.output_plan(target, rate_hz=fs_out, channels=info.channels,
+                                 bits=delivery.bits, source_probe=info,
+                                 frames_estimate=frames_out)
+    passes = 2 if (delivery.ceiling_dbtp is not None or delivery.loudness_lufs is not None) else 1
+    download = output_name(_stem(rec["name"]), fs_out, out_plan.bits, ext)
+    db = get_db()
+    conv = db.add_conversion(conversion_id=cid, recording_id=rec["id"], design_id=design_id,
+                             fs_in=fs_in, fs_out=fs_out, format=fmt, spec=spec.to_dict(),
+                             delivery=delivery.to_dict(), output_path=target,
+                             download_name=download, frames_total=info.frames * passes)
+    source = rec["path"]
+
+    def run(progress, cancel):
+        return convert_file(source, target, spec=spec, fs_out=fs_out, delivery=delivery,
+                            plan=plan, progress=progress, cancel=cancel)
+
+    st.pool.submit(cid, run)
+    return _json(_public_conversion(conv), 202)
+
+
+@bp.get("/conversions")
+def list_conversions():
+    rid = request.args.get("recording_id")
+    rows = get_db().list_conversions(recording_id=rid)
+    return _json(dict(conversions=[_public_conversion(c, figures=False) for c in rows]))
+
+
+@bp.get("/conversions/<conversion_id>")
+def get_conversion(conversion_id):
+    return _json(_public_conversion(conversion_or_404(conversion_id)))
+
+
+@bp.get("/conversions/<conversion_id>/events")
+def conversion_events(conversion_id):
+    conv = conversion_or_404(conversion_id)
+    store = state().store
+    interval = float(current_app.config["SSE_INTERVAL_S"])
+    cid = conv["id"]
+
+    def stream():
+        last, quiet_since = None, time.monotonic()
+        with store.open() as db:
+            yield "retry: 1000\n\n"
+            while True:
+                c = db.get_conversion(cid)
+                if c is None:
+                    return
+                if c["status"] in FINAL_STATUSES:
+                    text = json.dumps(jsonable(_public_conversion(c)), allow_nan=False)
+                    yield f"event: end\ndata: {text}\n\n"
+                    return
+                text = json.dumps(jsonable(_public_conversion(c, figures=False)),
+                                  allow_nan=False)
+                if text != last:
+                    yield f"data: {text}\n\n"
+                    last, quiet_since = text, time.monotonic()
+                elif time.monotonic() - quiet_since > 10:
+                    yield ": still working\n\n"
+                    quiet_since = time.monotonic()
+                time.sleep(interval)
+
+    return Response(stream(), mimetype="text/event-stream",
+                    headers={"Cache-Control": "no-cache", "X-Accel-Buffering": "no"})
+
+
+@bp.post("/conversions/<conversion_id>/cancel")
+def cancel_conversion(conversion_id):
+    conv = conversion_or_404(conversion_id)
+    if conv["status"] in FINAL_STATUSES:
+        raise ApiError(409, f"the conversion is already {conv['status']}", "conversion_id")
+    state().pool.cancel(conv["id"])
+    return _json(_public_conversion(get_db().get_conversion(conv["id"])))
+
+
+def _done_or_409(conv):
+    if conv["status"] != "done":
+        raise ApiError(409, f"the conversion is {conv['status']}, not done", "conversion_id")
+    if not os.path.isfile(conv["output_path"]):
+        raise ApiError(404, "the converted file was removed (cleared as old)", "conversion_id")
+    return conv
+
+
+@bp.get("/conversions/<conversion_id>/download")
+def download_conversion(conversion_id):
+    conv = _done_or_409(conversion_or_404(conversion_id))
+    return send_file(conv["output_path"], as_attachment=True,
+                     download_name=conv["download_name"], conditional=True,
+                     mimetype=_MIMETYPES.get((conv["figures"] or {}).get("output_format"),
+                                             "application/octet-stream"))
+
+
+@bp.get("/conversions/<conversion_id>/audio")
+def conversion_audio(conversion_id):
+    conv = _done_or_409(conversion_or_404(conversion_id))
+    return send_file(conv["output_path"], conditional=True,
+                     mimetype=_MIMETYPES.get((conv["figures"] or {}).get("output_format"),
+                                             "application/octet-stream"))
+
+
+def _result_for(conv):
+    """The ConversionResult of a finished conversion: kept in memory, or rebuilt from the store
+    after a restart (the design is recomputed from its spec: designs are deterministic)."""
+    st = state()
+    result = st.result(conv["id"])
+    if result is not None:
+        return result
+    from webapp.pipeline import ConversionResult
+    rec = recording_or_404(conv["recording_id"])
+    f = conv["figures"]
+    spec = spec_module.Spec(**conv["spec"])
+    plan = st.cache.conversion_plan(spec, conv["fs_in"], conv["fs_out"])
+    output_meters = {k: v for k, v in f["output"].items() if k != "clipped_samples"}
+    return ConversionResult(
+        source_path=rec["path"], output_path=conv["output_path"], fs_in=conv["fs_in"],
+        fs_out=conv["fs_out"], channels=f["channels"], frames_in=f["frames_in"],
+        frames_out=f["frames_out"], seconds=f["seconds"], spec=spec,
+        delivery=Delivery(**f["delivery"]), design=plan, source_probe=media.probe(rec["path"]),
+        output_format=f["output_format"], output_subtype=f["output_subtype"], bits=f["bits"],
+        gain_db=f["gain_db"], gain_reason=f["gain_reason"], source_meters=f["source"],
+        output_meters=output_meters, clipped_samples=f["clipped_samples"], passes=f["passes"],
+        source_sha256=f["source_sha256"], output_sha256=f["output_sha256"], version=f["version"])
+
+
+def _blind_summary(conversion_id):
+    trials = get_db().list_blind_trials(conversion_id)
+    if not trials:
+        return None
+    n = sum(t["trials"] for t in trials)
+    k = sum(t["correct"] for t in trials)
+    return dict(trials=n, correct=k, p_value=_binomial_tail(k, n), sessions=len(trials))
+
+
+def _attachment(body, name, mimetype):
+    response = current_app.response_class(body, mimetype=mimetype)
+    response.headers.set("Content-Disposition", "attachment", filename=name)
+    return response
+
+
+@bp.get("/conversions/<conversion_id>/sheet")
+def conversion_sheet(conversion_id):
+    conv = _done_or_409(conversion_or_404(conversion_id))
+    from webapp import sheet
+    texts = {k: request.args.get(k) or None for k in ("title", "author", "note")}
+    result = _result_for(conv)
+    st = state()
+    tmp = os.path.join(st.store.outputs, f".sheet-{secrets.token_hex(8)}.html")
+    try:
+        sheet.write_sheet(result, tmp, blind=_blind_summary(conv["id"]), **texts)
+        with open(tmp, "rb") as f:
+            body = f.read()
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+    name = os.path.splitext(conv["download_name"])[0] + "_sheet.html"
+    return _attachment(body, name, "text/html")
+
+
+@bp.get("/conversions/<conversion_id>/recipe")
+def conversion_recipe(conversion_id):
+    conv = _done_or_409(conversion_or_404(conversion_id))
+    path = conv["recipe_path"]
+    if not path or not os.path.isfile(path):
+        from webapp import sheet
+        path = os.path.join(state().store.outputs, f"{conv['id']}_recipe.json")
+        sheet.write_recipe(_result_for(conv), path)
+    with open(path, "rb") as f:
+        body = f.read()
+    name = os.path.splitext(conv["download_name"])[0] + "_recipe.json"
+    return _attachment(body, name, "application/json")
+
+
+# ---------------------------------------------------------------------------------------------
+# blind trials
+
+def _binomial_tail(correct, trials):
+    """P(at least ``correct`` right of ``trials`` by guessing, p = 1/2): the one-sided
+    binomial tail, summed exactly."""
+    return math.fsum(math.comb(trials, k) for k in range(correct, trials + 1)) / 2.0 ** trials
+
+
+@bp.post("/conversions/<conversion_id>/blind_trials")
+def add_blind_trials(conversion_id):
+    conv = conversion_or_404(conversion_id)
+    data = json_body()
+    trials = integer(data, "trials", low=1, high=10000, required=True)
+    correct = integer(data, "correct", low=0, high=trials, required=True)
+    answers = data.get("answers") or []
+    if not isinstance(answers, list) or len(answers) > trials:
+        raise ParameterError(f"answers must be a list of at most {trials} items", "answers")
+    for i, a in enumerate(answers):
+        if not isinstance(a, dict) or a.get("x") not in ("A", "B") \
+                or a.get("answer") not in ("A", "B"):
+            raise ParameterError(f"answers[{i}] must be {{\"x\": \"A\"|\"B\", \"answer\": "
+                                 f"\"A\"|\"B\"}}, got {a!r}", "answers")
+    if len(answers) == trials:
+        right = sum(a["x"] == a["answer"] for a in answers)
+        if right != correct:
+            raise ParameterError(f"correct must equal the right answers in answers ({right}), "
+                                 f"got {correct}", "correct")
+    note = data.get("note") or ""
+    if not isinstance(note, str) or len(note) > 2000:
+        raise ParameterError("note must be text of at most 2000 characters", "note")
+    row = get_db().add_blind_trial(conversion_id=conv["id"], trials=trials, correct=correct,
+                                   p_value=_binomial_tail(correct, trials),
+                                   answers=[dict(x=a["x"], answer=a["answer"]) for a in answers],
+                                   note=note)
+    return _json(row, 201)
+
+
+@bp.get("/conversions/<conversion_id>/blind_trials")
+def list_blind_trials(conversion_id):
+    conv = conversion_or_404(conversion_id)
+    return _json(dict(blind_trials=get_db().list_blind_trials(conv["id"]),
+                      summary=_blind_summary(conv["id"])))
+
+
+# ---------------------------------------------------------------------------------------------
+# recipes
+
+@bp.post("/recipes")
+def upload_recipe():
+    try:
+        body = _file_field().stream.read(4 << 20)
+    finally:
+        discard_incoming(request)
+    from webapp import sheet
+    recipe = sheet.load_recipe(body)
+    return _json(dict(spec=recipe.spec.to_dict(), fs_in=recipe.fs_in, fs_out=recipe.fs_out,
+                      delivery=recipe.delivery.to_dict(), block_frames=recipe.block_frames,
+                      source_name=recipe.source_name, source_sha256=recipe.source_sha256,
+                      output_sha256=recipe.output_sha256, recipe=recipe.to_dict()))
+
+
+# ---------------------------------------------------------------------------------------------
+# listening renditions
+
+@bp.post("/renditions")
+def create_renditions():
+    data = json_body()
+    st = state()
+    max_s = current_app.config["EXCERPT_MAX_S"]
+    start_s = number(data, "start_s", default=0.0, low=0.0, unit="s")
+    length_s = number(data, "length_s", default=10.0, low=analysis.RENDITION_MIN_S, high=max_s,
+                      unit="s")
+    rate_hz = rate(data, "rate_hz")
+    sample_format = choice(data, "sample_format", ("float32", "pcm24"), default="float32")
+    conversion_id = data.get("conversion_id")
+    if conversion_id is not None:
+        conv = _done_or_409(conversion_or_404(conversion_id))
+        rec = recording_or_404(conv["recording_id"])
+        plan = st.cache.conversion_plan(spec_module.Spec(**conv["spec"]), conv["fs_in"],
+                                        conv["fs_out"])
+        converted = dict(path=conv["output_path"], plan=plan)
+        conversion_id = conv["id"]
+    else:
+        rec = recording_or_404(data.get("recording_id"))
+        spec, fs_in, fs_out, _ = spec_input(data, fs_in=rec["rate_hz"])
+        converted = dict(plan=st.cache.conversion_plan(spec, fs_in, fs_out))
+    rid = new_id()
+    figures, paths = analysis.make_renditions(
+        source_path=rec["path"], probe=media.probe(rec["path"]), converted=converted,
+        start_s=start_s, length_s=length_s, rate_hz=rate_hz, cache=st.cache,
+        folder=st.store.renditions, rendition_id=rid, sample_format=sample_format,
+        max_length_s=max_s)
+    get_db().add_rendition(rendition_id=rid, recording_id=rec["id"], conversion_id=conversion_id,
+                           figures=jsonable(figures), paths=paths)
+    body = dict(id=rid, recording_id=rec["id"], conversion_id=conversion_id)
+    body.update(figures)
+    for kind in RENDITION_KINDS:
+        body[kind] = dict(body[kind], url=_url("rendition_audio", id=rid, kind=kind))
+    return _json(body, 201)
+
+
+@bp.get("/renditions/<rendition_id>/<kind>")
+def rendition_audio(rendition_id, kind):
+    row = get_db().get_rendition(rendition_id)
+    if row is None:
+        raise ApiError(404, f"rendition {rendition_id!r} doesn't exist", "rendition_id")
+    if kind not in RENDITION_KINDS:
+        raise ApiError(404, f"kind must be one of {', '.join(RENDITION_KINDS)}, got {kind!r}",
+                       "kind")
+    path = row["paths"].get(kind)
+    if not path or not os.path.isfile(path):
+        raise ApiError(404, "the rendition was removed (cleared as old)", "rendition_id")
+    return send_file(path, mimetype="audio/wav", conditional=True)
+
+
+# ---------------------------------------------------------------------------------------------
+# maintenance
+
+@bp.post("/maintenance/clear")
+def clear():
+    from webapp.jobs import clear_old
+    data = json_body()
+    days = number(data, "older_than_days", default=7.0, low=0.0, high=36500.0, unit="days")
+    removed = clear_old(state().store.instance_path, older_than_days=days)
+    return _json(dict(removed_files=removed, older_than_days=days))

@@ -1,0 +1,106 @@
+"""Recordings: probe and measure a file once, register it in the store (no Flask here)."""
+
+import glob
+import logging
+import math
+import os
+
+from webapp import media
+from webapp.dsp.errors import ParameterError, RateferryError
+from webapp.dsp.loudness import LoudnessMeter, TruePeakMeter
+
+__all__ = ["DEMO_NAME", "probe_figures", "measure", "register_demo", "find_demo_file"]
+
+log = logging.getLogger(__name__)
+
+DEMO_NAME = "harbour_interview_44k1.flac"
+_DEMO_PATTERNS = ("*.flac", "*.wav")
+
+
+def probe_figures(info):
+    """The probe as plain figures for the store and the API."""
+    return dict(rate_hz=info.rate_hz, channels=info.channels, frames=info.frames,
+                duration_s=info.duration_s, format=info.format, subtype=info.subtype,
+                size_bytes=info.size_bytes, tags=dict(info.tags), is_float=info.is_float)
+
+
+def _finite(value):
+    value = float(value)
+    return value if math.isfinite(value) else None
+
+
+def measure(path, info):
+    """Read the whole file once: BS.1770 loudness, true peak, and finiteness of every sample.
+
+    Returns
+    -------
+    dict
+        ``integrated_lufs``, ``loudness_range_lu``, ``true_peak_dbtp``, ``sample_peak_dbfs``
+        (None when undefined: silence, shorter than 400 ms, or a rate below the loudness
+        meter's 8 kHz) and ``analysis: "done"``.
+
+    Raises
+    ------
+    AudioFileError
+        At the first NaN/Inf sample (from :func:`webapp.media.read_blocks`).
+    """
+    try:
+        loud = LoudnessMeter(rate_hz=info.rate_hz, channels=info.channels)
+        note = None
+    except ParameterError as exc:
+        loud, note = None, exc.message
+    peak = TruePeakMeter(rate_hz=info.rate_hz, channels=info.channels)
+    for block in media.read_blocks(path):
+        if loud is not None:
+            loud.process(block)
+        peak.process(block)
+    p = peak.result()
+    out = dict(integrated_lufs=None, loudness_range_lu=None,
+               true_peak_dbtp=_finite(p.true_peak_dbtp),
+               sample_peak_dbfs=_finite(p.sample_peak_dbfs), analysis="done")
+    if loud is not None:
+        r = loud.result()
+        out.update(integrated_lufs=_finite(r.integrated_lufs),
+                   loudness_range_lu=_finite(r.loudness_range_lu))
+    if note:
+        out["analysis_note"] = f"no loudness: {note}"
+    return out
+
+
+def find_demo_file(folder):
+    """The demo recording in ``folder``: DEMO_NAME, else the first .flac/.wav; or None."""
+    if not folder or not os.path.isdir(folder):
+        return None
+    preferred = os.path.join(folder, DEMO_NAME)
+    if os.path.isfile(preferred):
+        return preferred
+    for pattern in _DEMO_PATTERNS:
+        found = sorted(glob.glob(os.path.join(glob.escape(folder), pattern)))
+        if found:
+            return found[0]
+    return None
+
+
+def register_demo(store, folder):
+    """Register the demo recording in place (no copy); returns its id or None.
+
+    A file registered before and unchanged since (size, modification time) keeps its id, so a
+    page reloaded after a restart still finds it.
+    """
+    path = find_demo_file(folder)
+    if path is None:
+        log.info("no demo recording in %s", folder)
+        return None
+    with store.open() as db:
+        known = db.find_demo(path)
+        if known is not None:
+            return known["id"]
+        try:
+            info = media.probe(path)
+            meters = measure(path, info)
+        except RateferryError as exc:
+            log.warning("demo recording %s can't be used: %s", path, exc.message)
+            return None
+        rec = db.add_recording(name=os.path.basename(path), path=path, owned=False, demo=True,
+                               probe=probe_figures(info), meters=meters)
+        return rec["id"]

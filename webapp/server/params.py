@@ -1,0 +1,141 @@
+"""Request parsing: JSON bodies, numbers, rates, the spec input, ids. Thin and strict.
+
+Every helper raises :class:`ParameterError` (400) or :class:`ApiError` naming the field and the
+value, so a view never sees a half-parsed request.
+"""
+
+import math
+import numbers
+
+from flask import request
+
+from webapp.dsp.errors import ParameterError
+from webapp.dsp.rates import validate_rate
+from webapp.dsp.spec import DEFAULT_PRESET, Spec, preset, spec_from_dict
+
+from .db import get_db
+from .errors import ApiError
+
+__all__ = ["json_body", "number", "integer", "choice", "rate", "spec_input", "recording_or_404",
+           "conversion_or_404", "design_or_404"]
+
+
+def json_body():
+    """The request's JSON object (an empty body reads as {})."""
+    if not request.get_data(cache=True):
+        return {}
+    data = request.get_json(silent=True)
+    if not isinstance(data, dict):
+        raise ParameterError("the request body must be a JSON object", "body")
+    return data
+
+
+def number(data, name, *, default=None, low=None, high=None, unit="", required=False):
+    """A finite float from ``data[name]`` within [low, high]."""
+    value = data.get(name, default)
+    if value is None:
+        if required:
+            raise ParameterError(f"{name} is required", name)
+        return None
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or \
+            not math.isfinite(value):
+        raise ParameterError(f"{name} must be a finite number{' of ' + unit if unit else ''}, "
+                             f"got {value!r}", name)
+    value = float(value)
+    if (low is not None and value < low) or (high is not None and value > high):
+        raise ParameterError(f"{name} must be {_range_text(low, high, unit)}, got {value:g}", name)
+    return value
+
+
+def _range_text(low, high, unit=""):
+    u = f" {unit}" if unit else ""
+    if low is not None and high is not None:
+        return f"from {low:g} to {high:g}{u}"
+    if low is not None:
+        return f"at least {low:g}{u}"
+    return f"at most {high:g}{u}"
+
+
+def integer(data, name, *, default=None, low=None, high=None, required=False):
+    value = data.get(name, default)
+    if value is None:
+        if required:
+            raise ParameterError(f"{name} is required", name)
+        return None
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise ParameterError(f"{name} must be a whole number, got {value!r}", name)
+    value = int(value)
+    if (low is not None and value < low) or (high is not None and value > high):
+        raise ParameterError(f"{name} must be a whole number {_range_text(low, high)}, got "
+                             f"{value}", name)
+    return value
+
+
+def choice(data, name, choices, *, default=None):
+    value = data.get(name, default)
+    if value not in choices:
+        raise ParameterError(f"{name} must be one of {', '.join(map(str, choices))}, got "
+                             f"{value!r}", name)
+    return value
+
+
+def rate(data, name, *, required=True):
+    value = data.get(name)
+    if value is None:
+        if required:
+            raise ParameterError(f"{name} is required (a rate in Hz)", name)
+        return None
+    return validate_rate(value, field=name)
+
+
+def _ident(value, kind):
+    if value is None:
+        raise ParameterError(f"{kind}_id is required", f"{kind}_id")
+    if not isinstance(value, str) or not value or len(value) > 64:
+        raise ApiError(404, f"{kind} {value!r} doesn't exist", f"{kind}_id")
+    return value
+
+
+def _row_or_404(kind, value, getter):
+    row = getter(_ident(value, kind))
+    if row is None:
+        raise ApiError(404, f"{kind} {value!r} doesn't exist", f"{kind}_id")
+    return row
+
+
+def recording_or_404(recording_id):
+    return _row_or_404("recording", recording_id, get_db().get_recording)
+
+
+def conversion_or_404(conversion_id):
+    return _row_or_404("conversion", conversion_id, get_db().get_conversion)
+
+
+def design_or_404(design_id):
+    return _row_or_404("design", design_id, get_db().get_design)
+
+
+def spec_input(data, *, fs_in=None):
+    """(spec, fs_in, fs_out, design_id or None) from a request body.
+
+    Either ``design_id`` (an earlier design), or ``preset`` (default music_delivery) plus
+    ``spec`` overrides with ``fs_in`` (or the given ``fs_in``, from a recording) and ``fs_out``.
+    """
+    if data.get("design_id") is not None:
+        row = design_or_404(data["design_id"])
+        spec = Spec(**row["spec"])
+        if fs_in is not None and fs_in != row["fs_in"]:
+            raise ParameterError(f"design {row['id']} converts from {row['fs_in']} Hz, but the "
+                                 f"recording is at {fs_in} Hz", "design_id")
+        return spec, row["fs_in"], row["fs_out"], row["id"]
+    name = data.get("preset") or DEFAULT_PRESET
+    if not isinstance(name, str):
+        raise ParameterError(f"preset must be a preset name, got {name!r}", "preset")
+    overrides = data.get("spec") or {}
+    if not isinstance(overrides, dict):
+        raise ParameterError("spec must be a JSON object of Spec fields", "spec")
+    spec = spec_from_dict(overrides, base=preset(name))
+    if fs_in is None:
+        fs_in = rate(data, "fs_in")
+    fs_out = rate(data, "fs_out")
+    return spec, fs_in, fs_out, None
