@@ -10,11 +10,10 @@ import os
 import sys
 import time
 
-import numpy as np
-
 from . import __version__
 from .dsp.errors import RateferryError
 from .dsp.spec import PRESETS, DEFAULT_PRESET, preset, spec_from_dict
+from .jsontools import jsonable
 
 EXIT_BAD_INPUT = 2
 
@@ -30,22 +29,6 @@ SPEC_OPTIONS = [
     ("--arithmetic", "arithmetic", str, "float32 | float64"),
     ("--stages", "stages", str, "single | auto (multistage when it saves work)"),
 ]
-
-
-def jsonable(value):
-    """Plain JSON types; non-finite floats become null."""
-    if isinstance(value, dict):
-        return {str(k): jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [jsonable(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return jsonable(value.tolist())
-    if isinstance(value, (np.integer,)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        v = float(value)
-        return v if math.isfinite(v) else None
-    return value
 
 
 def _add_spec_options(p):
@@ -153,11 +136,11 @@ def cmd_convert(args):
             raise ParameterError("convert needs --to HZ (or --recipe FILE)", "fs_out")
         spec, fs_out, delivery = spec_from_args(args), args.fs_out, _delivery_from_args(args)
         blocksize = args.block_frames
+    if args.recipe:
+        recipe.check_source(args.input)   # before any work: nothing is written for a wrong source
     bar = ProgressBar(not args.quiet and not args.json, os.path.basename(args.input))
     result = pipeline.convert_file(args.input, args.output, spec=spec, fs_out=fs_out,
                                    delivery=delivery, blocksize=blocksize, progress=bar)
-    if args.recipe:
-        recipe.check_source(result)
     if args.write_recipe or args.sheet:
         from . import sheet
         if args.write_recipe:

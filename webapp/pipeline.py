@@ -104,6 +104,7 @@ class ConversionResult:
     output_meters: dict = field(default_factory=dict)
     clipped_samples: int = 0
     passes: int = 1
+    block_frames: int = BLOCK_FRAMES
     source_sha256: str = ""
     output_sha256: str = ""
     version: str = __version__
@@ -320,4 +321,5 @@ def convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None,
         gain_reason=gain_reason, source_meters=source_meters.result(),
         output_meters=out_meters.result(),
         clipped_samples=int(quant.clipped_samples) if quant is not None else 0,
-        passes=passes, source_sha256=media.sha256_file(source), output_sha256=out_sha)
+        passes=passes, block_frames=int(blocksize), source_sha256=media.sha256_file(source),
+        output_sha256=out_sha)

@@ -267,13 +267,16 @@ def test_blind_trial_answers_must_agree_with_the_count(client, headers, finished
 
 
 def test_recipe_download_reproduces_and_uploads_back(client, headers, finished):
-    sheet = pytest.importorskip("webapp.sheet")
+    from webapp import sheet
     r = client.get(finished["urls"]["recipe"])
     assert r.status_code == 200
     assert _disposition(r) == ("attachment", "ident_44k1_16bit_recipe.json")
     recipe = sheet.load_recipe(r.data)
     assert recipe.fs_out == 44100 and recipe.spec == preset("quick_preview")
     assert recipe.output_sha256 == finished["figures"]["output_sha256"]
+    # the names the user knows, not the generated storage names
+    assert recipe.source_name == "ident.wav"
+    assert recipe.data["output"]["name"] == "ident_44k1_16bit.flac"
     up = client.post("/api/recipes", data={"file": (io.BytesIO(r.data), "r.json")},
                      headers=headers, content_type="multipart/form-data")
     assert up.status_code == 200
@@ -286,7 +289,6 @@ def test_recipe_download_reproduces_and_uploads_back(client, headers, finished):
 
 
 def test_design_sheet_download_includes_the_blind_trials(client, headers, finished):
-    pytest.importorskip("webapp.sheet")
     client.post(finished["urls"]["blind_trials"], json={"trials": 8, "correct": 7},
                 headers=headers)
     r = client.get(finished["urls"]["sheet"] + "?title=Ident%20check&author=Sam")
@@ -296,3 +298,4 @@ def test_design_sheet_download_includes_the_blind_trials(client, headers, finish
     assert "Ident check" in html and "Sam" in html
     assert "Blind listening trials" in html
     assert finished["figures"]["output_sha256"] in html
+    assert "ident.wav" in html

@@ -190,7 +190,7 @@ def test_unknown_design_id_is_404(client):
 
 
 def test_audit_endpoint_returns_the_cores_audit_figures(client, headers):
-    audit = pytest.importorskip("webapp.dsp.audit")
+    from webapp.dsp import audit
     req = {"fs_in": 48000, "fs_out": 16000, "preset": "quick_preview"}
     r = client.post("/api/audits", json=req, headers=headers)
     assert r.status_code == 200

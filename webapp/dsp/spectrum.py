@@ -108,6 +108,7 @@ def decimate_for_plot(freqs, values, *, max_points=2000, log_axis=False):
     else:
         edges = np.linspace(freqs[0], freqs[-1], max_points + 1)
     idx = np.searchsorted(freqs, edges)
+    idx[0], idx[-1] = 0, freqs.size      # the buckets cover every point, both ends included
     out_f, out_v = [], []
     for a, b in zip(idx[:-1], idx[1:]):
         if b > a:

@@ -25,7 +25,7 @@ from .design import design, kaiser_numtaps, _meets, Measured
 from .errors import ParameterError
 from .rates import route as make_route
 
-__all__ = ["Plan", "plan_options", "choose_plan"]
+__all__ = ["Plan", "plan_options", "choose_plan", "cascade_response"]
 
 MAX_CANDIDATES = 6
 
@@ -122,7 +122,7 @@ def _estimated_cost(mask, rates, specs, factors):
     return total / mask.fs_out
 
 
-def _cascade_response(stages, F):
+def cascade_response(stages, F):
     """|H_eq| on a uniform grid over 0..F/2 (F = fs_in * L), exact products of stage FFTs."""
     cs = [int(round(F / s.filter_rate_hz)) for s in stages]
     base = 1
@@ -144,7 +144,7 @@ def _cascade_response(stages, F):
 
 def _verify(stages, mask):
     F = float(mask.fs_in * mask.up)
-    freqs, mag = _cascade_response(stages, F)
+    freqs, mag = cascade_response(stages, F)
     pb = freqs <= mask.passband_hz
     sb = freqs >= mask.stopband_hz
     ripple = float(np.max(np.abs(20 * np.log10(np.maximum(mag[pb], 1e-300)))))

@@ -73,7 +73,11 @@ class State:
         except ImportError:
             return None
         path = os.path.join(self.store.outputs, f"{conversion_id}_recipe.json")
-        sheet.write_recipe(result, path)
+        with self.store.open() as db:
+            conv = db.get_conversion(conversion_id)
+            rec = db.get_recording(conv["recording_id"]) if conv else None
+        sheet.write_recipe(result, path, source_name=rec["name"] if rec else None,
+                           output_name=conv["download_name"] if conv else None)
         return path
 
     def result(self, conversion_id):

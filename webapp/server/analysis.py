@@ -24,7 +24,7 @@ import threading
 import numpy as np
 
 from webapp import media
-from webapp.cli import jsonable
+from webapp.jsontools import jsonable
 from webapp.dsp.design import design as design_filter, require_met
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.loudness import integrated_loudness

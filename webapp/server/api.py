@@ -10,7 +10,7 @@ import time
 from flask import Blueprint, Response, current_app, request, send_file
 
 from webapp import __version__, media
-from webapp.cli import jsonable
+from webapp.jsontools import jsonable
 from webapp.dsp import spec as spec_module
 from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
 from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
@@ -538,6 +538,12 @@ def _result_for(conv):
         source_sha256=f["source_sha256"], output_sha256=f["output_sha256"], version=f["version"])
 
 
+def _user_names(conv):
+    """The names the user knows (upload name, download name), not the stored generated ones."""
+    rec = get_db().get_recording(conv["recording_id"])
+    return dict(source_name=rec["name"] if rec else None, output_name=conv["download_name"])
+
+
 def _blind_summary(conversion_id):
     trials = get_db().list_blind_trials(conversion_id)
     if not trials:
@@ -562,7 +568,8 @@ def conversion_sheet(conversion_id):
     st = state()
     tmp = os.path.join(st.store.outputs, f".sheet-{secrets.token_hex(8)}.html")
     try:
-        sheet.write_sheet(result, tmp, blind=_blind_summary(conv["id"]), **texts)
+        sheet.write_sheet(result, tmp, blind=_blind_summary(conv["id"]), **texts,
+                          **_user_names(conv))
         with open(tmp, "rb") as f:
             body = f.read()
     finally:
@@ -579,7 +586,7 @@ def conversion_recipe(conversion_id):
     if not path or not os.path.isfile(path):
         from webapp import sheet
         path = os.path.join(state().store.outputs, f"{conv['id']}_recipe.json")
-        sheet.write_recipe(_result_for(conv), path)
+        sheet.write_recipe(_result_for(conv), path, **_user_names(conv))
     with open(path, "rb") as f:
         body = f.read()
     name = os.path.splitext(conv["download_name"])[0] + "_recipe.json"
