@@ -81,10 +81,17 @@ def server(tmp_path_factory):
         app.extensions["rateferry"].shutdown()
 
 
+@pytest.fixture(scope="session")
+def context(browser):
+    """One browser context for the session, so plotly.js (4.8 MB) is parsed from its cache."""
+    ctx = browser.new_context(viewport=VIEWPORT, accept_downloads=True)
+    yield ctx
+    ctx.close()
+
+
 @pytest.fixture
-def page(browser, server):
+def page(context, server):
     """A fresh page with the demo loaded and its first spectra drawn; fails on page errors."""
-    context = browser.new_context(viewport=VIEWPORT, accept_downloads=True)
     pg = context.new_page()
     errors = []
     pg.on("pageerror", lambda exc: errors.append(str(exc)))
@@ -94,7 +101,7 @@ def page(browser, server):
     pg.wait_for_function("() => { const p = document.getElementById('plot-spectra'); "
                          "return p && p.data && p.data.length > 0; }")
     yield pg
-    context.close()
+    pg.close()
     assert not errors, f"the page threw: {errors}"
 
 
