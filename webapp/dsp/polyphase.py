@@ -27,8 +27,8 @@ from .errors import ParameterError
 __all__ = ["PolyphaseConverter", "ArbitraryConverter", "CascadeConverter", "make_converter",
            "convert", "output_length"]
 
-_GROUP_ROWS = 64          # outputs per coefficient matrix: wide enough for BLAS, little waste
-_CHUNK_ELEMENTS = 1 << 19  # window-matrix elements per product (a few MB)
+_GROUP_ROWS = 96          # outputs per coefficient matrix: wide enough for BLAS, little waste
+_CHUNK_ELEMENTS = 1 << 21  # window-matrix elements per product (16 MB in float64)
 
 
 def output_length(frames, up, down):
