@@ -20,7 +20,7 @@ Bell System Technical Journal 52(6), 1973. Bellanger, Digital Processing of Sign
 Smith & Gossett, "A flexible sampling-rate conversion method", ICASSP 1984 (arbitrary path).
 """
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 import math
 import time
 
@@ -276,7 +276,7 @@ def _design_linear(method, mask, rate, gain, attenuation_db=None):
         raise ParameterError(
             f"method {method} is limited to {limit} taps; this mask needs about {n} at "
             f"{rate:g} Hz (use method auto or kaiser, or widen the transition band)", "method")
-    target = _MaskAt(mask, att)
+    target = replace(mask, attenuation_db=float(att))
     h = measured = None
     for it in range(1, MAX_ITERATIONS + 1):
         try:
@@ -298,21 +298,6 @@ def _design_linear(method, mask, rate, gain, attenuation_db=None):
             break
         n = nxt
     return h, method, estimate, it, measured, False, f"not met after {it} designs up to {n} taps"
-
-
-@dataclass(frozen=True)
-class _MaskAt:
-    """A mask with a different attenuation (minimum-phase designs work on the squared mask)."""
-
-    base: object
-    attenuation_db: float
-
-    def __getattr__(self, name):
-        return getattr(self.base, name)
-
-    @property
-    def stopband_delta(self):
-        return 10 ** (-self.attenuation_db / 20.0)
 
 
 def _prering_ms(h, rate):
@@ -361,8 +346,6 @@ def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
     t0 = time.perf_counter()
     rt = make_route(fs_in, fs_out)
     mask = spec.mask(rt)
-    if spec.method in ("equiripple", "least-squares") and spec.phase == "minimum":
-        pass  # allowed: the linear design is converted below
     rate = float(rt.prototype_rate)
     width = (mask.stopband_hz - mask.passband_hz) / (rate / 2)
     est = _odd(kaiser_numtaps(max(mask.attenuation_db,
