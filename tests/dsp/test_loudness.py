@@ -4,9 +4,9 @@ Sources named beside each check:
 - ITU-R BS.1770-4 (10/2015): K-weighting table at 48 kHz, -3.01 LKFS for a 0 dBFS 997 Hz sine in
   one front channel, channel weights, gating, Annex 2 true-peak filter.
 - EBU Tech 3341 (v3 2016 / v4 2023), Table 1 "minimum requirements" test signals; the signal
-  descriptions are read from public transcriptions of the table (memory for the exact wording).
+  descriptions are read from public copies of the table (memory for the exact wording).
   Loudness tolerance +-0.1 LU, true-peak tolerance +0.2 / -0.4 dB.
-- EBU Tech 3342, loudness range test signals 1-4 (from the same transcriptions); the document
+- EBU Tech 3342, loudness range test signals 1-4 (from the same public copies); the document
   allows +-1 LU, we hold the meter to +-0.1 LU, the precision an ideal meter reaches on them.
 - pyloudnorm (PyPI), a general-purpose reference; its "DeMan" filter class reproduces the 48 kHz
   table.
