@@ -385,9 +385,11 @@ def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
     # A minimum-phase filter is the spectral factor of a linear-phase one with the same magnitude
     # (half=False keeps the magnitude). Both bands must hold for that same magnitude.
     h, method_used, estimate, iterations, measured, met, why = _design_linear(method, mask, rate, gain)
-    if h is None and method == "equiripple" and spec.method == "auto":
+    if (h is None or not met) and method == "equiripple" and spec.method == "auto":
+        # remez did not converge, or did not reach the mask within its length limit
         method = "kaiser"
-        method_reason = f"Parks-McClellan failed ({why}); Kaiser window design used instead"
+        method_reason = (f"Parks-McClellan failed ({why or 'mask not met'}); Kaiser window "
+                         "design used instead")
         h, method_used, estimate, iterations, measured, met, why = _design_linear(method, mask,
                                                                                   rate, gain)
     if h is None:
