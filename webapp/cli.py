@@ -148,14 +148,22 @@ def cmd_convert(args):
         if args.sheet:
             sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
                               note=args.note)
+    figs = result.figures()
+    if args.recipe:
+        # a re-run is only a reproduction when the bytes are the same as the recipe says
+        figs["reproduces_recipe"] = recipe.reproduces(result)
     if args.json:
-        _print_json(result.figures())
+        _print_json(figs)
     elif not args.quiet:
-        f = result.figures()
         print(f"wrote {args.output}: {result.frames_out} frames at {result.fs_out} Hz, "
               f"{result.output_subtype}, gain {result.gain_db:+.2f} dB ({result.gain_reason}), "
-              f"true peak {f['output']['true_peak_dbtp']} dBTP, "
+              f"true peak {figs['output']['true_peak_dbtp']} dBTP, "
               f"clipped samples {result.clipped_samples}, {result.seconds:.2f} s")
+        if args.recipe:
+            print("output is byte-identical to the recipe's (same sha256)"
+                  if figs["reproduces_recipe"] else
+                  f"output differs from the recipe's: sha256 {result.output_sha256}, recipe "
+                  f"{recipe.output_sha256}")
     return 0
 
 

@@ -158,6 +158,11 @@ def test_convert_with_recipe_reproduces_the_output_bit_for_bit(converted, tmp_pa
     assert _sha(converted["src"]) == data["source"]["sha256"]
     # the API conversion with the same options wrote the very same bytes
     assert converted["result"].output_sha256 == data["output"]["sha256"]
+    # and the command says so
+    code, out, err = _run(capsys, "convert", converted["src"], tmp_path / "third.wav", "--recipe",
+                          converted["recipe"], "--json")
+    assert code == 0, err
+    assert json.loads(out)["reproduces_recipe"] is True
 
 
 def test_recipe_with_a_different_source_gives_the_clear_error(converted, tmp_path, capsys):
