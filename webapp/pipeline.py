@@ -30,7 +30,7 @@ from .dsp.rates import validate_rate
 from .dsp.spec import Spec
 from .dsp.stages import choose_plan
 
-__all__ = ["Delivery", "Cancelled", "ConversionResult", "convert_file", "DITHERS",
+__all__ = ["Delivery", "Cancelled", "ConversionResult", "convert_file", "DITHERS", "Meters",
            "output_name", "plan_for", "BLOCK_FRAMES"]
 
 BLOCK_FRAMES = 65536
@@ -147,21 +147,39 @@ def output_name(stem, fs_out, bits, ext):
     return "_".join(parts) + ext
 
 
-class _Meters:
+class Meters:
+    """BS.1770 loudness and true peak of one stream, fed block by block.
+
+    ``result()`` gives ``integrated_lufs``, ``loudness_range_lu``, ``true_peak_dbtp`` and
+    ``sample_peak_dbfs``, None where undefined (silence, under 400 ms). Below the loudness
+    meter's lowest rate (8 kHz) the loudness figures are None and ``analysis_note`` says why;
+    the true peak is still measured, so such a conversion still runs.
+    """
+
     def __init__(self, rate, channels):
-        self.loud = LoudnessMeter(rate_hz=rate, channels=channels)
+        try:
+            self.loud, self.note = LoudnessMeter(rate_hz=rate, channels=channels), None
+        except ParameterError as exc:
+            self.loud, self.note = None, exc.message
         self.peak = TruePeakMeter(rate_hz=rate, channels=channels)
 
     def process(self, x):
-        self.loud.process(x)
+        if self.loud is not None:
+            self.loud.process(x)
         self.peak.process(x)
 
     def result(self):
-        lr, pr = self.loud.result(), self.peak.result()
-        return dict(integrated_lufs=_finite(lr.integrated_lufs),
-                    loudness_range_lu=_finite(lr.loudness_range_lu),
-                    true_peak_dbtp=_finite(pr.true_peak_dbtp),
-                    sample_peak_dbfs=_finite(pr.sample_peak_dbfs))
+        pr = self.peak.result()
+        out = dict(integrated_lufs=None, loudness_range_lu=None,
+                   true_peak_dbtp=_finite(pr.true_peak_dbtp),
+                   sample_peak_dbfs=_finite(pr.sample_peak_dbfs))
+        if self.loud is not None:
+            lr = self.loud.result()
+            out.update(integrated_lufs=_finite(lr.integrated_lufs),
+                       loudness_range_lu=_finite(lr.loudness_range_lu))
+        if self.note:
+            out["analysis_note"] = f"no loudness: {self.note}"
+        return out
 
 
 def _finite(v):
@@ -395,11 +413,11 @@ def _convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None
         if progress is not None:
             progress(min(1.0, frames / max(total_work, 1)), frames, total_work)
 
-    source_meters = _Meters(fs_in, src.channels)
+    source_meters = Meters(fs_in, src.channels)
     gain_db, gain_reason = 0.0, "report only"
     if needs_first_pass:
         conv = make_converter(design, channels=src.channels, dtype=dtype)
-        first = _Meters(fs_out, src.channels)
+        first = Meters(fs_out, src.channels)
         with _Stages() as stages:
             source_stage = stages.add(source_meters.process, "rateferry-source-meters")
             first_stage = stages.add(first.process, "rateferry-output-meters")
@@ -418,7 +436,7 @@ def _convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None
         quant = Quantizer(bits=out_plan.bits, dither=delivery.dither, seed=delivery.dither_seed,
                           channels=src.channels, rate_hz=fs_out)
     scale = {"16": 2.0**15, "24": 2.0**31}.get(out_plan.bits)
-    out_meters = _Meters(fs_out, src.channels)
+    out_meters = Meters(fs_out, src.channels)
     conv = make_converter(design, channels=src.channels, dtype=dtype)
     comment = media.converted_comment(fs_in, fs_out) if tags_comment else None
 

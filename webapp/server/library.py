@@ -2,12 +2,11 @@
 
 import glob
 import logging
-import math
 import os
 
 from webapp import media
-from webapp.dsp.errors import ParameterError, RateferryError
-from webapp.dsp.loudness import LoudnessMeter, TruePeakMeter
+from webapp.dsp.errors import RateferryError
+from webapp.pipeline import Meters
 
 __all__ = ["DEMO_NAME", "probe_figures", "measure", "register_demo", "find_demo_file"]
 
@@ -24,11 +23,6 @@ def probe_figures(info):
                 size_bytes=info.size_bytes, tags=dict(info.tags), is_float=info.is_float)
 
 
-def _finite(value):
-    value = float(value)
-    return value if math.isfinite(value) else None
-
-
 def measure(path, info):
     """Read the whole file once: BS.1770 loudness, true peak, and finiteness of every sample.
 
@@ -37,34 +31,18 @@ def measure(path, info):
     dict
         ``integrated_lufs``, ``loudness_range_lu``, ``true_peak_dbtp``, ``sample_peak_dbfs``
         (None when undefined: silence, shorter than 400 ms, or a rate below the loudness
-        meter's 8 kHz) and ``analysis: "done"``.
+        meter's 8 kHz, then with ``analysis_note``) and ``analysis: "done"``; the same meters
+        as the conversion pipeline (:class:`webapp.pipeline.Meters`).
 
     Raises
     ------
     AudioFileError
         At the first NaN/Inf sample (from :func:`webapp.media.read_blocks`).
     """
-    try:
-        loud = LoudnessMeter(rate_hz=info.rate_hz, channels=info.channels)
-        note = None
-    except ParameterError as exc:
-        loud, note = None, exc.message
-    peak = TruePeakMeter(rate_hz=info.rate_hz, channels=info.channels)
+    meters = Meters(info.rate_hz, info.channels)
     for block in media.read_blocks(path):
-        if loud is not None:
-            loud.process(block)
-        peak.process(block)
-    p = peak.result()
-    out = dict(integrated_lufs=None, loudness_range_lu=None,
-               true_peak_dbtp=_finite(p.true_peak_dbtp),
-               sample_peak_dbfs=_finite(p.sample_peak_dbfs), analysis="done")
-    if loud is not None:
-        r = loud.result()
-        out.update(integrated_lufs=_finite(r.integrated_lufs),
-                   loudness_range_lu=_finite(r.loudness_range_lu))
-    if note:
-        out["analysis_note"] = f"no loudness: {note}"
-    return out
+        meters.process(block)
+    return dict(meters.result(), analysis="done")
 
 
 def find_demo_file(folder):
