@@ -84,11 +84,9 @@ class ProgressBar:
 # ---------------------------------------------------------------- commands
 
 def cmd_design(args):
-    from .dsp.design import design
     from .dsp.stages import choose_plan
     spec = spec_from_args(args)
-    d = choose_plan(spec, args.fs_in, args.fs_out) if spec.stages == "auto" \
-        else design(spec, args.fs_in, args.fs_out)
+    d = choose_plan(spec, args.fs_in, args.fs_out)   # the single stage unless stages is auto
     figs = d.figures()
     if args.json:
         _print_json(figs)

@@ -243,14 +243,13 @@ def _choose_method(spec, mask, rate):
     df = (mask.stopband_hz - mask.passband_hz) / rate
     est_eq = herrmann_numtaps(mask.passband_delta, mask.stopband_delta, df) + 1
     if spec.method != "auto":
-        return spec.method, "chosen in the spec", est_eq
+        return spec.method, "chosen in the spec"
     if est_eq <= EQUIRIPPLE_AUTO_MAX:
         return ("equiripple",
-                f"equiripple needs the fewest taps (about {est_eq:.0f} by Herrmann-Rabiner-Chan)",
-                est_eq)
+                f"equiripple needs the fewest taps (about {est_eq:.0f} by Herrmann-Rabiner-Chan)")
     return ("kaiser",
             f"the mask needs about {est_eq:.0f} equiripple taps; Parks-McClellan is not reliable "
-            f"beyond {EQUIRIPPLE_AUTO_MAX}, so a Kaiser window design is used", est_eq)
+            f"beyond {EQUIRIPPLE_AUTO_MAX}, so a Kaiser window design is used")
 
 
 def _design_linear(method, mask, rate, gain, attenuation_db=None):
@@ -372,7 +371,7 @@ def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
                        f"{max_bank_taps}); bandlimited interpolation with a {phases}-phase table "
                        f"and linear interpolation between phases is used instead")
     gain = float(phases)
-    method, method_reason, _ = _choose_method(spec, mask, rate)
+    method, method_reason = _choose_method(spec, mask, rate)
     if path == "arbitrary" and method != "kaiser":
         if spec.method != "auto":
             raise ParameterError(

@@ -46,7 +46,23 @@ def _as_block(block, channels, dtype):
     return x.astype(dtype, copy=False)
 
 
-class _Streaming:
+class _Output:
+    """Output bookkeeping shared by every converter: frames_out and the whole-signal call."""
+
+    def _emit(self, y, limit=None):
+        if limit is not None:
+            y = y[:max(0, limit - self.frames_out)]
+        self.frames_out += y.shape[0]
+        return y
+
+    def process_all(self, x):
+        """Convert a whole signal at once (resets first)."""
+        self.reset()
+        head = self.process(x)
+        return np.concatenate([head, self.flush()], axis=0)
+
+
+class _Streaming(_Output):
     """Shared buffer handling: channel-major input buffer with an absolute start index."""
 
     def _init_stream(self, channels, dtype, pre):
@@ -78,12 +94,6 @@ class _Streaming:
             self._buf = np.ascontiguousarray(self._buf[:, cut:])
             self._buf_start = index
 
-    def _emit(self, y, limit=None):
-        if limit is not None:
-            y = y[:max(0, limit - self.frames_out)]
-        self.frames_out += y.shape[0]
-        return y
-
     def flush(self):
         """Return the remaining output frames; the total is ceil(frames_in * up / down)."""
         total = output_length(self.frames_in, self.up, self.down)
@@ -91,12 +101,6 @@ class _Streaming:
         out = self._finish(need)
         self._flushed = True
         return self._emit(out, total)
-
-    def process_all(self, x):
-        """Convert a whole signal at once (resets first)."""
-        self.reset()
-        head = self.process(x)
-        return np.concatenate([head, self.flush()], axis=0)
 
 
 class PolyphaseConverter(_Streaming):
@@ -298,7 +302,7 @@ class ArbitraryConverter(_Streaming):
         return self._run(need)
 
 
-class CascadeConverter:
+class CascadeConverter(_Output):
     """Stages run one after another; the whole keeps the single-stage length contract."""
 
     def __init__(self, stages, up, down):
@@ -321,27 +325,15 @@ class CascadeConverter:
             x = s.process(x)
         return self._emit(x)
 
-    def _emit(self, y, total=None):
-        if total is not None:
-            y = y[:max(0, total - self.frames_out)]
-        self.frames_out += y.shape[0]
-        return y
-
     def flush(self):
         total = output_length(self.frames_in, self.up, self.down)
-        x = None
+        x = np.empty((0, self.channels), self.stages[0].dtype)
         for s in self.stages:
-            head = s.process(x) if x is not None else np.empty((0, s.channels), s.dtype)
-            x = np.concatenate([head, s.flush()], axis=0)
+            x = np.concatenate([s.process(x), s.flush()], axis=0)
         short = total - self.frames_out - x.shape[0]
         if short > 0:
             x = np.concatenate([x, np.zeros((short, self.channels), x.dtype)], axis=0)
         return self._emit(x, total)
-
-    def process_all(self, x):
-        self.reset()
-        head = self.process(x)
-        return np.concatenate([head, self.flush()], axis=0)
 
 
 def make_converter(design, *, channels=1, dtype=None):
