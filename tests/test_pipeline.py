@@ -19,7 +19,8 @@ from webapp.cli import main
 from webapp.dsp.errors import AudioFileError, ParameterError
 from webapp.dsp.loudness import integrated_loudness, true_peak
 from webapp.dsp.spec import Spec, preset
-from webapp.pipeline import Cancelled, Delivery, convert_file, output_name
+from webapp.delivery import Delivery
+from webapp.pipeline import Cancelled, convert_file, output_name
 
 
 def sine(freq, rate, seconds, amp=0.5, channels=2):

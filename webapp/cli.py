@@ -11,6 +11,7 @@ import sys
 import time
 
 from . import __version__
+from .dsp.dither import DITHERS, WORD_LENGTHS
 from .dsp.errors import RateferryError
 from .dsp.spec import PRESETS, DEFAULT_PRESET, preset, spec_from_dict
 from .jsontools import jsonable
@@ -116,9 +117,9 @@ def cmd_plans(args):
 
 
 def _delivery_from_args(args):
-    from .pipeline import Delivery
-    return Delivery(bits=args.bits, dither=args.dither, dither_seed=args.seed,
-                    ceiling_dbtp=args.ceiling, loudness_lufs=args.loudness)
+    from .delivery import Delivery
+    return Delivery.from_dict(dict(bits=args.bits, dither=args.dither, dither_seed=args.seed,
+                                   ceiling_dbtp=args.ceiling, loudness_lufs=args.loudness))
 
 
 def cmd_convert(args):
@@ -202,7 +203,7 @@ def cmd_serve(args):
 
 
 def cmd_clean(args):
-    from .jobs import clear_old
+    from .store import clear_old
     removed = clear_old(args.instance, older_than_days=args.days)
     print(f"removed {removed} old files")
     return 0
@@ -233,9 +234,9 @@ def build_parser():
     p.add_argument("output")
     p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
     _add_spec_options(p)
-    p.add_argument("--bits", choices=["16", "24", "32f", "64f"], default=None,
+    p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
                    help="output word length (default: like the source)")
-    p.add_argument("--dither", choices=["none", "tpdf", "shaped"], default="tpdf",
+    p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
                    help="dither for 16/24-bit outputs (default tpdf)")
     p.add_argument("--seed", type=int, default=0, help="dither seed (default 0)")
     p.add_argument("--ceiling", type=float, default=None,
@@ -257,7 +258,7 @@ def build_parser():
     p.add_argument("--from", dest="fs_in", type=int, required=True)
     p.add_argument("--to", dest="fs_out", type=int, required=True)
     _add_spec_options(p)
-    p.add_argument("--dither", choices=["none", "tpdf", "shaped"], default="none")
+    p.add_argument("--dither", choices=list(DITHERS), default="none")
     p.add_argument("--seed", type=int, default=0)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_audit)

@@ -48,6 +48,7 @@ import numpy as np
 from . import __version__
 from . import media
 from . import pipeline
+from .delivery import Delivery
 from .jsontools import jsonable
 from .dsp.errors import ParameterError, RateferryError
 from .dsp.rates import route as make_route
@@ -243,7 +244,7 @@ class Recipe:
     spec: Spec
     fs_in: int
     fs_out: int
-    delivery: pipeline.Delivery
+    delivery: Delivery
     block_frames: int
     source_name: str
     source_sha256: str
@@ -580,7 +581,7 @@ def load_recipe(source):
         raise ParameterError(f"recipe spec: {exc.message}", f"spec.{exc.field}") from None
     d = {k: _as_int(v) if k == "dither_seed" else v for k, v in data["delivery"].items()}
     try:
-        delivery = pipeline.Delivery(**d)
+        delivery = Delivery.from_dict(d)
     except ParameterError as exc:
         raise ParameterError(f"recipe delivery: {exc.message}", f"delivery.{exc.field}") from None
     return Recipe(spec=spec, fs_in=int(rt["fs_in"]), fs_out=int(rt["fs_out"]),

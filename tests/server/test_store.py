@@ -12,8 +12,8 @@ import urllib.request
 
 import pytest
 
-from webapp import jobs
-from webapp.jobs import INTERRUPTED_MESSAGE, Store, clear_old
+from webapp import store as jobs
+from webapp.store import INTERRUPTED_MESSAGE, Store, clear_old
 from webapp.server.run import serve
 
 

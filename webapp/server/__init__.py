@@ -27,7 +27,7 @@ import threading
 from flask import Flask
 
 from webapp import __version__
-from webapp.jobs import ConversionPool, Store, default_instance_path
+from webapp.store import ConversionPool, Store, default_instance_path
 
 __all__ = ["create_app", "State", "DEFAULT_MAX_CONTENT_LENGTH", "SOURCE_ROOT"]
 
@@ -100,7 +100,7 @@ def create_app(test_config=None, *, instance_path=None):
         Config that replaces ``instance/config.py``; ``INSTANCE_PATH`` in it picks the folder.
     instance_path : str, optional
         The instance folder (data, database). Default: ``test_config["INSTANCE_PATH"]``, else
-        :func:`webapp.jobs.default_instance_path`.
+        :func:`webapp.store.default_instance_path`.
 
     Returns
     -------

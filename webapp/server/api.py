@@ -14,8 +14,9 @@ from webapp.jsontools import jsonable
 from webapp.dsp import spec as spec_module
 from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
 from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
-from webapp.jobs import ACTIVE_STATUSES, FINAL_STATUSES, new_id
-from webapp.pipeline import DITHERS, Delivery, convert_file, output_name
+from webapp.store import ACTIVE_STATUSES, FINAL_STATUSES, new_id
+from webapp.delivery import DITHERS, Delivery
+from webapp.pipeline import convert_file, output_name
 
 from . import analysis
 from .db import get_db, state
@@ -353,31 +354,6 @@ def create_spectra():
 # ---------------------------------------------------------------------------------------------
 # conversions
 
-def _delivery(data):
-    if data is None:
-        data = {}
-    if not isinstance(data, dict):
-        raise ParameterError("delivery must be a JSON object", "delivery")
-    known = ("bits", "dither", "dither_seed", "ceiling_dbtp", "loudness_lufs")
-    unknown = sorted(set(data) - set(known))
-    if unknown:
-        raise ParameterError(f"unknown delivery field {unknown[0]!r}; known: {', '.join(known)}",
-                             unknown[0])
-    bits = data.get("bits")
-    if bits is not None:
-        bits = str(bits) if isinstance(bits, (str, int)) and not isinstance(bits, bool) else bits
-        if bits not in media.WORD_LENGTHS:
-            raise ParameterError(f"bits must be one of {', '.join(media.WORD_LENGTHS)} (or null "
-                                 f"for like the source), got {data.get('bits')!r}", "bits")
-    return Delivery(
-        bits=bits,
-        dither=choice(data, "dither", DITHERS, default="tpdf"),
-        dither_seed=integer(data, "dither_seed", default=0, low=0, high=2**63 - 1),
-        ceiling_dbtp=number(data, "ceiling_dbtp", unit="dBTP"),
-        loudness_lufs=number(data, "loudness_lufs", unit="LUFS"),
-    )
-
-
 def _public_conversion(conv, *, figures=True):
     out = {k: conv[k] for k in ("id", "recording_id", "design_id", "status", "cancel_requested",
                                 "fs_in", "fs_out", "format", "spec", "delivery", "progress",
@@ -406,7 +382,7 @@ def create_conversion():
     spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
     fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
     ext = OUTPUT_FORMAT_EXTENSIONS[fmt]
-    delivery = _delivery(data.get("delivery"))
+    delivery = Delivery.from_dict(data.get("delivery"))
     st = state()
     plan = st.cache.conversion_plan(spec, fs_in, fs_out)
     if design_id is None:
@@ -714,7 +690,7 @@ def rendition_audio(rendition_id, kind):
 
 @bp.post("/maintenance/clear")
 def clear():
-    from webapp.jobs import clear_old
+    from webapp.store import clear_old
     data = json_body()
     days = number(data, "older_than_days", default=7.0, low=0.0, high=36500.0, unit="days")
     removed = clear_old(state().store.instance_path, older_than_days=days)

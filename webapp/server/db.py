@@ -11,7 +11,7 @@ def state():
 
 
 def get_db():
-    """The request's :class:`webapp.jobs.Db` (opened on first use)."""
+    """The request's :class:`webapp.store.Db` (opened on first use)."""
     if "db" not in g:
         g.db = state().store.open()
     return g.db

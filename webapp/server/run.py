@@ -44,7 +44,7 @@ def serve(*, host="127.0.0.1", port=DEFAULT_PORT, open_browser=True, debug=False
     debug : bool
         Flask's development server with debugging instead of waitress.
     instance_path : str, optional
-        The data folder (default :func:`webapp.jobs.default_instance_path`).
+        The data folder (default :func:`webapp.store.default_instance_path`).
     """
     if host not in LOOPBACK_HOSTS:
         raise ParameterError(f"host must be one of {', '.join(LOOPBACK_HOSTS)} (the server is "
