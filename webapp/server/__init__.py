@@ -47,7 +47,7 @@ class State:
     """What one app holds beside Flask: the store, the worker pool and the caches."""
 
     def __init__(self, app):
-        from .analysis import DesignCache
+        from webapp.designs import DesignCache
         self.config = app.config
         self.store = Store(app.instance_path)
         self.interrupted = self.store.recover_interrupted()
@@ -68,15 +68,12 @@ class State:
             self.results[conversion_id] = result
             while len(self.results) > _RESULTS_KEPT:
                 self.results.popitem(last=False)
-        try:
-            from webapp import sheet
-        except ImportError:
-            return None
+        from webapp.recipe import write_recipe
         path = os.path.join(self.store.outputs, f"{conversion_id}_recipe.json")
         with self.store.open() as db:
             conv = db.get_conversion(conversion_id)
             rec = db.get_recording(conv["recording_id"]) if conv else None
-        sheet.write_recipe(result, path, source_name=rec["name"] if rec else None,
+        write_recipe(result, path, source_name=rec["name"] if rec else None,
                            output_name=conv["download_name"] if conv else None)
         return path
 
