@@ -1,4 +1,4 @@
-"""The `rateferry` command: design, convert, audit, plans, serve, clean.
+"""The `rateferry` command: design, convert, batch, audit, plans, serve, clean.
 
 Bad input ends with one line, ``rateferry: error: <rule and value>``, exit code 2, nothing written.
 """
@@ -116,6 +116,19 @@ def cmd_plans(args):
     return 0
 
 
+def _add_delivery_options(p):
+    p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
+                   help="output word length (default: like the source)")
+    p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
+                   help="dither for 16/24-bit outputs (default tpdf)")
+    p.add_argument("--seed", type=int, default=0, help="dither seed (default 0)")
+    p.add_argument("--ceiling", type=float, default=None,
+                   help="true-peak ceiling in dBTP (gain applied to stay under it)")
+    p.add_argument("--loudness", type=float, default=None,
+                   help="integrated loudness target in LUFS")
+    p.add_argument("--block-frames", type=int, default=65536, help="frames per block read")
+
+
 def _delivery_from_args(args):
     from .delivery import Delivery
     return Delivery.from_dict(dict(bits=args.bits, dither=args.dither, dither_seed=args.seed,
@@ -167,6 +180,40 @@ def cmd_convert(args):
         sys.stderr.write(f"rateferry: error: {err.message}; the output was kept for inspection\n")
         return jobs.EXIT_RECIPE_MISMATCH
     return 0
+
+
+def cmd_batch(args):
+    from . import batch
+    from .batch.cluster import scheduler_address
+    from .batch.inputs import check_pattern
+    from .batch.prepare import Settings
+    recipe = None
+    if args.recipe:
+        from .recipe import load_recipe
+        recipe = load_recipe(args.recipe)
+    settings = Settings(out_dir=args.out, fs_out=args.fs_out, spec=spec_from_args(args),
+                        delivery=_delivery_from_args(args), block_frames=args.block_frames,
+                        format=f".{args.format}" if args.format else None,
+                        name_pattern=check_pattern(args.names), recipe=recipe)
+    options = batch.BatchOptions(
+        inputs=tuple(args.inputs), settings=settings,
+        scheduler=scheduler_address(args.scheduler), workers=args.workers,
+        replace=args.replace, progress_line=not args.quiet and not args.json,
+        json_events=args.json, sheet=not args.no_sheet)
+    try:
+        outcome = batch.run_batch(options)
+    except KeyboardInterrupt:
+        sys.stderr.write("\nrateferry: batch interrupted; finished files are kept and recorded "
+                         "in the ledger: run the same command again to go on\n")
+        from .batch.run import EXIT_INTERRUPTED
+        return EXIT_INTERRUPTED
+    if not args.json and not args.quiet:
+        c = outcome.counts
+        print(f"batch: {c['done']} converted, {c['skipped']} already done, {c['failed']} "
+              f"failed ({outcome.cluster or 'no conversion needed'}); report "
+              f"{outcome.reports['csv']}" + (f", sheet {outcome.reports['sheet']}"
+                                             if "sheet" in outcome.reports else ""))
+    return outcome.exit_code
 
 
 def cmd_audit(args):
@@ -237,16 +284,7 @@ def build_parser():
     p.add_argument("output")
     p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
     _add_spec_options(p)
-    p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
-                   help="output word length (default: like the source)")
-    p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
-                   help="dither for 16/24-bit outputs (default tpdf)")
-    p.add_argument("--seed", type=int, default=0, help="dither seed (default 0)")
-    p.add_argument("--ceiling", type=float, default=None,
-                   help="true-peak ceiling in dBTP (gain applied to stay under it)")
-    p.add_argument("--loudness", type=float, default=None,
-                   help="integrated loudness target in LUFS")
-    p.add_argument("--block-frames", type=int, default=65536, help="frames per block read")
+    _add_delivery_options(p)
     p.add_argument("--recipe", help="re-run a recipe (JSON); spec and delivery come from it")
     p.add_argument("--write-recipe", help="save the recipe of this conversion (JSON)")
     p.add_argument("--sheet", help="write a design sheet (self-contained HTML)")
@@ -256,6 +294,8 @@ def build_parser():
     p.add_argument("--json", action="store_true")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_convert)
+
+    _add_batch_parser(sub)
 
     p = sub.add_parser("audit", help="measure the converter on standard test signals")
     p.add_argument("--from", dest="fs_in", type=int, required=True)
@@ -279,6 +319,43 @@ def build_parser():
     p.add_argument("--days", type=float, default=7.0)
     p.set_defaults(func=cmd_clean)
     return ap
+
+
+BATCH_EPILOG = """exit status: 0 every file done (now or in an earlier run); 2 bad input found
+before any work (nothing converted); 4 some files failed (the others are done; see the report);
+130 interrupted (run the same command again to go on).
+name pattern parts: {stem} {parent} {rate} (16k, 44k1) {hz} (16000) {bits} (16bit, 24bit,
+32float, 64float) {format} (wav, flac); default: {stem}_{rate}_{bits}.<source format>."""
+
+
+def _add_batch_parser(sub):
+    from .media import OUTPUT_FORMATS
+    p = sub.add_parser("batch", help="convert many files (Dask: this machine or a cluster)",
+                       epilog=BATCH_EPILOG,
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("inputs", nargs="+", metavar="INPUT",
+                   help="audio files, folders (searched recursively) or manifests (.csv, .jsonl)")
+    p.add_argument("--out", required=True, help="output folder (holds the ledger and reports)")
+    p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
+    _add_spec_options(p)
+    _add_delivery_options(p)
+    p.add_argument("--recipe", help="apply a recipe (JSON) to every file: a template, or an "
+                   "exact re-run for its own source")
+    p.add_argument("--format", choices=sorted(e.lstrip(".") for e in OUTPUT_FORMATS),
+                   help="output format (default: the source's)")
+    p.add_argument("--names", metavar="PATTERN", default=None,
+                   help="output file-name pattern, e.g. '{stem}_{rate}.{format}'")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="run on this Dask scheduler (default: $RATEFERRY_SCHEDULER, else a "
+                        "local cluster)")
+    p.add_argument("--workers", type=int, default=None,
+                   help="worker processes of the local cluster (default: one per core)")
+    p.add_argument("--replace", action="store_true",
+                   help="replace outputs that this batch did not make")
+    p.add_argument("--no-sheet", action="store_true", help="skip the batch sheet (HTML)")
+    p.add_argument("--json", action="store_true", help="JSON-lines events on stdout")
+    p.add_argument("--quiet", action="store_true", help="no progress line")
+    p.set_defaults(func=cmd_batch)
 
 
 def main(argv=None):

@@ -17,6 +17,7 @@ Conventions
 """
 
 from dataclasses import dataclass, field
+import glob
 import hashlib
 import math
 import os
@@ -46,6 +47,7 @@ __all__ = [
     "refuse_same_file",
     "converted_comment",
     "sha256_file",
+    "partial_paths",
 ]
 
 #: Output file extension -> (soundfile major format). Opus travels in an Ogg container.
@@ -832,6 +834,16 @@ class AtomicWriter:
             except FileNotFoundError:
                 pass
             self.temp_path = None
+
+
+def partial_paths(path):
+    """Temporary files an :class:`AtomicWriter` for ``path`` left behind (a killed process):
+    ``.<stem>.<random>.partial<ext>`` beside the target. Never the target itself."""
+    folder = os.path.dirname(os.path.abspath(path))
+    stem, ext = os.path.splitext(os.path.basename(path))
+    pattern = os.path.join(glob.escape(folder),
+                           f".{glob.escape(stem)}.*.partial{glob.escape(ext)}")
+    return sorted(glob.glob(pattern))
 
 
 def _fsync_folder(folder):

@@ -16,7 +16,6 @@ Conventions
 """
 
 from concurrent.futures import ThreadPoolExecutor
-import glob
 import json
 import logging
 import math
@@ -202,11 +201,8 @@ class Store:
 
 def _remove_partials(output_path):
     """Remove ``output_path`` and the writer's temporary files beside it."""
-    folder = os.path.dirname(output_path)
-    stem, ext = os.path.splitext(os.path.basename(output_path))
-    # media.AtomicWriter writes ".<stem>.<random>.partial<ext>" beside the target
-    pattern = os.path.join(glob.escape(folder), f".{glob.escape(stem)}.*.partial{glob.escape(ext)}")
-    for path in glob.glob(pattern) + [output_path]:
+    from .media import partial_paths
+    for path in partial_paths(output_path) + [output_path]:
         try:
             os.unlink(path)
         except FileNotFoundError:
