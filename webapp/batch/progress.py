@@ -66,9 +66,10 @@ class Progress:
         self.draw(force=state == "failed")
 
     def note(self, text):
-        """A line of its own (a failure, a retry), then the progress line again."""
-        if self.line:
-            self.stream.write("\r\x1b[K" + text + "\n")
+        """A line of its own on stderr (a failure, a retry), also with --json or --quiet;
+        then the progress line again."""
+        self.stream.write(("\r\x1b[K" if self.line else "") + text + "\n")
+        self.stream.flush()
         self.draw(force=True)
 
     def draw(self, *, force=False):
