@@ -11,6 +11,7 @@ import * as filter from './views/filter.js';
 import * as audit from './views/audit.js';
 import * as listen from './views/listen.js';
 import * as history from './views/history.js';
+import * as batch from './views/batch.js';
 
 const TABS = ['spectra', 'filter', 'audit', 'listen'];
 
@@ -87,6 +88,7 @@ async function boot() {
   audit.init(document.getElementById('panel-audit'), state);
   listen.init(document.getElementById('panel-listen'), state);
   history.init(document.getElementById('history-view'), state);
+  batch.init(document.getElementById('batch-view'), state);
   setupTabs(state);
 
   // A new recording keeps the route unless it would convert to its own rate.

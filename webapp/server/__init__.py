@@ -144,8 +144,9 @@ def create_app(test_config=None, *, instance_path=None):
     errors.register_error_handlers(app)
     security.init_security(app)
 
-    from . import api, page
+    from . import api, batches, page
     app.register_blueprint(api.bp)
+    app.register_blueprint(batches.bp)
     app.register_blueprint(page.bp)
 
     if app.config["LOAD_DEMO"]:

@@ -57,6 +57,10 @@ URLS = {
     "renditions": "/api/renditions",
     "rendition_audio": "/api/renditions/{id}/{kind}",
     "clear": "/api/maintenance/clear",
+    "batches": "/api/batches",
+    "batch": "/api/batches/{id}",
+    "batch_cancel": "/api/batches/{id}/cancel",
+    "batch_zip": "/api/batches/{id}/zip",
     "plotly": "/static/vendor/plotly.min.js",
 }
 
@@ -370,35 +374,49 @@ def _public_conversion(conv, *, figures=True):
     return out
 
 
-@bp.post("/conversions")
-def create_conversion():
-    data = json_body()
-    rec = recording_or_404(data.get("recording_id"))
+def _readable(rec):
     if rec.get("analysis") == "failed":
         err = rec.get("analysis_error") or {}
         raise ParameterError(err.get("message", "the recording can't be read"), "recording_id")
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
-    fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
-    ext = OUTPUT_FORMAT_EXTENSIONS[fmt]
-    delivery = Delivery.from_dict(data.get("delivery"))
+    return rec
+
+
+def _prepare_conversion(rec, spec, fs_in, fs_out, fmt, delivery, design_id=None):
+    """(conversion id, job, design id): checked and decided, nothing queued yet."""
     st = state()
-    plan = st.cache.conversion_plan(spec, fs_in, fs_out)
+    plan = st.cache.conversion_plan(spec, fs_in, fs_out)   # one design per route, cached
     if design_id is None:
         design_id = _store_design(spec, fs_in, fs_out, plan.figures())
     cid = new_id()
-    job = jobs.prepare(rec["path"], st.store.output_path(cid, ext), fs_out=fs_out, spec=spec,
-                       delivery=delivery, plan=plan)
+    job = jobs.prepare(rec["path"], st.store.output_path(cid, OUTPUT_FORMAT_EXTENSIONS[fmt]),
+                       fs_out=fs_out, spec=spec, delivery=delivery, plan=plan)
+    return cid, job, design_id
+
+
+def _queue_conversion(rec, cid, job, design_id, fmt):
     conv = get_db().add_conversion(
-        conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=fs_in,
-        fs_out=fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
-        output_path=job.target, download_name=job.download_name(_stem(rec["name"])),
-        frames_total=job.frames_total)
+        conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=job.fs_in,
+        fs_out=job.fs_out, format=fmt, spec=job.spec.to_dict(),
+        delivery=job.delivery.to_dict(), output_path=job.target,
+        download_name=job.download_name(_stem(rec["name"])), frames_total=job.frames_total)
 
     def run(progress, cancel):
         return jobs.run(job, progress=progress, cancel=cancel)
 
-    st.pool.submit(cid, run)
-    return _json(_public_conversion(conv), 202)
+    state().pool.submit(cid, run)
+    return conv
+
+
+@bp.post("/conversions")
+def create_conversion():
+    data = json_body()
+    rec = _readable(recording_or_404(data.get("recording_id")))
+    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
+    fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
+    delivery = Delivery.from_dict(data.get("delivery"))
+    cid, job, design_id = _prepare_conversion(rec, spec, fs_in, fs_out, fmt, delivery,
+                                              design_id)
+    return _json(_public_conversion(_queue_conversion(rec, cid, job, design_id, fmt)), 202)
 
 
 @bp.get("/conversions")
