@@ -9,6 +9,8 @@ import { el, fill, showError, clearErrors, errorSlot } from '../ui.js';
 
 const POLL_MS = 500;
 
+const nFiles = (n) => `${fmt.grouped(n)} file${n === 1 ? '' : 's'}`;
+
 function stateText(c) {
   if (!c) return 'waiting';
   if (c.status === 'running' && c.progress) return `converting ${fmt.percent(c.progress.percent)}`;
@@ -60,7 +62,7 @@ export function init(root, state) {
     cancelBtn.hidden = !busy();
     clearBtn.hidden = !files.length || busy();
     summary.textContent = files.length
-      ? `${fmt.count(files.length, 'file')} (${fmt.bytes(files.reduce((n, f) => n + f.file.size, 0))}) → ${settings()}`
+      ? `${nFiles(files.length)} (${fmt.bytes(files.reduce((n, f) => n + f.file.size, 0))}) → ${settings()}`
       : 'No files chosen yet.';
     table.hidden = !files.length;
     const members = batch ? batch.conversions : [];
@@ -87,7 +89,7 @@ export function init(root, state) {
       progress.hidden = false;
       progress.value = p.percent;
       fill(downloads, batch.urls && batch.urls.zip
-        ? el('a', { class: 'button', id: 'batch-zip', href: batch.urls.zip, download: '' }, `All converted files (zip, ${fmt.count(p.files_done, 'file')})`)
+        ? el('a', { class: 'button', id: 'batch-zip', href: batch.urls.zip, download: '' }, `All converted files (zip, ${nFiles(p.files_done)})`)
         : null);
     } else {
       fill(downloads);
@@ -147,7 +149,7 @@ export function init(root, state) {
       return;
     }
     const c = batch.counts;
-    status.textContent = batch.status === 'done' ? `Done: ${fmt.count(c.done || 0, 'file')} converted.`
+    status.textContent = batch.status === 'done' ? `Done: ${nFiles(c.done || 0)} converted.`
       : `Finished: ${c.done || 0} done, ${c.failed || 0} failed, ${c.cancelled || 0} cancelled.`;
     state.set({ conversionsStale: Date.now() });
     loadEarlier();
@@ -216,7 +218,7 @@ export function init(root, state) {
         return;
       }
       fill(earlier, ...batches.map((b) => el('li', { dataset: { id: b.id, status: b.status } },
-        el('span', { class: 'name' }, `${fmt.count(b.progress.files_total, 'file')} → ${fmt.rate(b.fs_out)} ${String(b.format).toUpperCase()}`),
+        el('span', { class: 'name' }, `${nFiles(b.progress.files_total)} → ${fmt.rate(b.fs_out)} ${String(b.format).toUpperCase()}`),
         el('span', { class: `status-${b.status === 'finished' ? 'failed' : b.status}` }, `${b.status} · ${b.counts.done || 0} done`),
         el('span', {}, fmt.when(new Date(b.created * 1000).toISOString())),
         el('span', { class: 'links' }, b.urls.zip ? el('a', { href: b.urls.zip, download: '' }, 'zip') : ''))));
