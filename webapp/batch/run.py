@@ -161,7 +161,11 @@ def _triage(entries, ledger, *, replace_outputs):
             rows[e.name] = file_row(e, state="skipped", figures=row["figures"],
                                     message="already done with this source and these options")
             continue
-        if exists and not replace_outputs:
+        # a file this batch was making when it was stopped (the worker may have finished
+        # writing it, atomically, after the client died): ours to make again
+        ours = row is not None and row["state"] == "running" \
+            and row["options_hash"] == e.options_hash and row["source_path"] == source
+        if exists and not ours and not replace_outputs:
             message = (f"'{e.name}' already exists in the output folder and this batch did not "
                        "make it from this source with these options; it was left as it is "
                        "(pass --replace to replace it)")
