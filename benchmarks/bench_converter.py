@@ -6,7 +6,8 @@
 
 Each route is timed streaming (blocks of 65536 frames, as the file pipeline feeds it) and
 scipy.signal.upfirdn on the whole signal; the two are timed in turn, repeat by repeat, and the
-best of each is kept, so a busy moment on a shared machine hits both alike. The BLAS library
+best of each is kept, so a busy moment on a shared machine hits both alike; the CPU-time
+ratio (all threads' CPU seconds) is printed too, steadier when other work shares the cores. The BLAS library
 runs with its default threads (``--blas-threads 1`` for one). Figures only; nothing asserts.
 """
 
@@ -49,14 +50,14 @@ def bench_route(fs_in, fs_out, *, seconds, arithmetic, repeats=5, attenuation_db
         signal.upfirdn(taps, x, d.up, d.down, axis=0)
 
     ours()                                  # first call: caches and BLAS buffers
-    t_ours = t_ref = float("inf")
+    t_ours = t_ref = c_ours = c_ref = float("inf")
     for _ in range(repeats):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         ours()
-        t_ours = min(t_ours, time.perf_counter() - t0)
-        t0 = time.perf_counter()
+        t_ours, c_ours = min(t_ours, time.perf_counter() - t0), min(c_ours, time.process_time() - c0)
+        t0, c0 = time.perf_counter(), time.process_time()
         reference()
-        t_ref = min(t_ref, time.perf_counter() - t0)
+        t_ref, c_ref = min(t_ref, time.perf_counter() - t0), min(c_ref, time.process_time() - c0)
     out_frames = fs_out * seconds
     layout = getattr(conv, "_layout", None)
     return dict(
@@ -64,6 +65,8 @@ def bench_route(fs_in, fs_out, *, seconds, arithmetic, repeats=5, attenuation_db
         numtaps=d.numtaps, taps_per_phase=d.taps_per_phase, method=d.method,
         seconds_audio=seconds, channels=2,
         rateferry_s=t_ours, scipy_upfirdn_s=t_ref, speedup_vs_scipy=t_ref / t_ours,
+        # CPU seconds (all threads): steadier than wall time on a shared machine
+        rateferry_cpu_s=c_ours, scipy_upfirdn_cpu_s=c_ref, cpu_ratio=c_ref / max(c_ours, 1e-9),
         target_speedup=TARGETS[arithmetic], x_realtime=seconds / t_ours,
         mmac_per_s=d.taps_per_phase * out_frames * 2 / t_ours / 1e6,
         layout=None if layout is None else dict(
@@ -110,11 +113,12 @@ def main(argv=None):
 def print_table(result):
     print(result["title"])
     print(f"{'route':>14} {'arith':>8} {'taps':>6} {'T':>4} {'ours s':>8} {'scipy s':>8} "
-          f"{'speedup':>8} {'target':>7} {'x real':>8} {'MMAC/s':>8}")
+          f"{'speedup':>8} {'target':>7} {'x real':>8} {'MMAC/s':>8} {'CPU ratio':>9}")
     for r in result["routes"]:
         print(f"{r['route']:>14} {r['arithmetic']:>8} {r['numtaps']:>6} {r['taps_per_phase']:>4} "
               f"{r['rateferry_s']:8.4f} {r['scipy_upfirdn_s']:8.4f} {r['speedup_vs_scipy']:7.1f}x "
-              f"{r['target_speedup']:6.0f}x {r['x_realtime']:8.0f} {r['mmac_per_s']:8.0f}")
+              f"{r['target_speedup']:6.0f}x {r['x_realtime']:8.0f} {r['mmac_per_s']:8.0f} "
+              f"{r['cpu_ratio']:8.1f}x")
     print("load average (1, 5, 15 min): " + ", ".join(f"{v:.2f}" for v in result["load_average"]))
 
 

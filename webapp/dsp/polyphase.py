@@ -13,9 +13,9 @@ Conventions
 The math (see DESIGN.md): with prototype h (N taps at fs_in*L) and T = ceil(N/L) taps per phase,
 output n = qL + r, with p = rM + D = a_r L + b_r, is
     y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j].
-Outputs of one block (K*L of them when L is small) are split into a few groups of neighbouring
-residues; each group is one dense matrix product of a strided window matrix with a small
-coefficient matrix, so BLAS does the work. Channels stack as more rows.
+A row of K*L outputs (K blocks) is split into groups of neighbouring residues; each group is one
+dense product of a strided view of the input (read in place by BLAS, see bank.py) with a small
+coefficient matrix. Channels are laid end to end so they stack as more rows of one product.
 """
 
 import math
