@@ -31,9 +31,9 @@ from . import media
 from .jsontools import jsonable
 from .recipe import recipe_file_name, recipe_from_result, write_json_atomic
 from .figures import (PALETTE, SPECTRUM_EXCERPT_S, impulse_curve, minmax_decimate,
-                      peak_decimate, plan_response, response_grid)
+                      passband_curve, peak_decimate, response_with_edges)
 from .dsp.errors import ParameterError, RateferryError
-from .dsp.spectrum import db, welch_spectrum
+from .dsp.spectrum import welch_spectrum
 
 __all__ = ["SHEET_BUDGET_BYTES", "sheet_html", "write_sheet"]
 
@@ -130,13 +130,7 @@ def _nyquist_shapes(result):
 def _response_plots(result):
     design = result.plan
     mask = design.mask
-    freqs, mag, rate = response_grid(design)
-    # the grid plus the exact edges, so the plot shows what the verdict measured there
-    edge_f = np.asarray([mask.passband_hz, mask.stopband_hz])
-    edge_mag = plan_response(design, edge_f, exact=True)
-    order = np.argsort(np.concatenate([freqs, edge_f]), kind="stable")
-    freqs = np.concatenate([freqs, edge_f])[order]
-    level = db(np.concatenate([mag, edge_mag]))[order]
+    freqs, level, rate = response_with_edges(design)
     top = rate / 2.0
     low = max(freqs[1], 1.0)
     # decimate each band on its own, so no bucket straddles an edge of the mask
@@ -165,9 +159,8 @@ def _response_plots(result):
                           yrange=[floor, 10], shapes=_nyquist_shapes(result)),
     }
     # passband close-up: to a quarter of the way into the transition band
-    edge = mask.passband_hz + 0.25 * (mask.stopband_hz - mask.passband_hz)
-    band = freqs <= edge
-    f_pb, v_pb = minmax_decimate(freqs[band], level[band], max_points=_CURVE_POINTS)
+    f_pb, v_pb = passband_curve(design)
+    edge = float(f_pb[-1])
     r = mask.ripple_db
     close = {
         "traces": [

@@ -535,7 +535,7 @@ class ConversionPool:
     def _work(self, conversion_id, run, event):
         from .dsp.errors import RateferryError
         from .pipeline import Cancelled
-        from .cli import jsonable
+        from .jsontools import jsonable
         try:
             with self.store.open() as db:
                 if event.is_set() or not db.start_conversion(conversion_id):
