@@ -347,8 +347,10 @@ class CascadeConverter(_Output):
 
 def make_converter(design, *, channels=1, dtype=None):
     """A converter for a :class:`~webapp.dsp.design.Design` or a multistage plan."""
-    stages = getattr(design, "stages", None)
+    stages = getattr(design, "stages", None)   # a Plan (one or more stages) or a Design
     if stages is not None:
+        if len(stages) == 1:
+            return make_converter(stages[0], channels=channels, dtype=dtype)
         parts = [make_converter(s, channels=channels, dtype=dtype) for s in stages]
         return CascadeConverter(parts, design.up, design.down)
     dtype = dtype or design.spec.arithmetic
