@@ -71,6 +71,8 @@ def main(argv=None):
     for name, fs_in, fs_out, stages in ROUTES:
         spec = replace(preset(name), stages=stages)
         t_design, d = best(lambda: choose_plan(spec, fs_in, fs_out), 1)
+        if len(getattr(d, "stages", ())) == 1:      # a one-stage plan is its design
+            d = d.stages[0]
         t_audit, r = best(lambda: audit(d), args.repeat)
         # the conversion step with the audit's channel count and length
         span = settle_time_s(d)
