@@ -46,7 +46,8 @@ def test_the_wheel_carries_the_page_and_the_demo(wheel):
     names = set(zipfile.ZipFile(wheel).namelist())
     for need in ("webapp/static/js/main.js", "webapp/static/css/rateferry.css",
                  "webapp/demo_media/harbour_interview_44k1.flac",
-                 "webapp/schemas/recipe.schema.json", "webapp/server/templates/index.html"):
+                 "webapp/schemas/recipe.schema.json", "webapp/server/templates/index.html",
+                 "webapp/sheet_assets/sheet.css", "webapp/sheet_assets/sheet.js"):
         assert need in names, need
     assert not any(n.startswith(("tests/", "static/", "demo_media/")) for n in names)
 
