@@ -13,22 +13,23 @@ Conventions
 The math (see DESIGN.md): with prototype h (N taps at fs_in*L) and T = ceil(N/L) taps per phase,
 output n = qL + r, with p = rM + D = a_r L + b_r, is
     y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j].
-Outputs of one block (K*L of them when L is small) are split into a few groups of neighbouring
-residues; each group is one dense matrix product of a strided window matrix with a small
-coefficient matrix, so BLAS does the work. Channels stack as more rows.
+A row of K*L outputs (K blocks) is split into groups of neighbouring residues; each group is one
+dense product of a strided view of the input (read in place by BLAS, see bank.py) with a small
+coefficient matrix. Channels are laid end to end so they stack as more rows of one product.
 """
 
 import math
 
 import numpy as np
+from numpy.lib.stride_tricks import as_strided
 
+from .bank import bank_layout
 from .errors import ParameterError
 
 __all__ = ["PolyphaseConverter", "ArbitraryConverter", "CascadeConverter", "make_converter",
            "convert", "output_length"]
 
-_GROUP_ROWS = 96          # outputs per coefficient matrix: wide enough for BLAS, little waste
-_CHUNK_ELEMENTS = 1 << 21  # window-matrix elements per product (16 MB in float64)
+_CHUNK_FRAMES = 1 << 17   # input frames per product in the exact converter
 
 
 def output_length(frames, up, down):
@@ -116,6 +117,12 @@ class PolyphaseConverter(_Streaming):
     dtype : {"float32", "float64"}
     delay : int, optional
         Delay to remove, in samples at the filter rate; default (len(taps) - 1) // 2.
+
+    Notes
+    -----
+    The products run on strided views of the input, laid out by
+    :func:`~webapp.dsp.bank.bank_layout`; products in float32 accumulate in float32 (about
+    -125 dB relative error, see DESIGN.md), so masks beyond about 120 dB want float64.
     """
 
     def __init__(self, taps, up, down, *, channels=1, dtype="float64", delay=None):
@@ -126,33 +133,12 @@ class PolyphaseConverter(_Streaming):
                                  "up")
         self.numtaps = h.size
         self.delay = (h.size - 1) // 2 if delay is None else int(delay)
-        L, M, D = self.up, self.down, self.delay
-        T = -(-h.size // L)
-        self.taps_per_phase = T
-        hp = np.zeros(T * L)
-        hp[:h.size] = h
-        # group K blocks of L outputs when L is small, so each product has enough columns
-        K = max(1, -(-_GROUP_ROWS // L)) if L < _GROUP_ROWS else 1
-        self._rows = R = K * L
-        self._stride = K * M
-        r = np.arange(R)
-        p = r * M + D
-        off, b = p // L, p % L
-        groups = []
-        ngroups = max(1, round(R / _GROUP_ROWS))
-        bounds = np.linspace(0, R, ngroups + 1).round().astype(int)
-        for g0, g1 in zip(bounds[:-1], bounds[1:]):
-            lo = int(off[g0]) - (T - 1)
-            width = int(off[g1 - 1]) - int(off[g0]) + T
-            mat = np.zeros((width, g1 - g0))
-            j = np.arange(T)
-            for col, rr in enumerate(range(g0, g1)):
-                rows = off[rr] - j - lo
-                mat[rows, col] = hp[j * L + b[rr]]
-            groups.append((int(g0), int(g1), lo, width, mat.astype(dtype)))
-        self._groups = groups
-        self._lo = min(g[2] for g in groups)
-        self._hi = max(g[2] + g[3] for g in groups)   # window end (exclusive) relative to q*stride
+        self.taps_per_phase = -(-h.size // self.up)
+        self._layout = bank_layout(h, self.up, self.down, self.delay, dtype)
+        self._rows = self._layout.rows_out
+        self._stride = self._layout.stride
+        self._lo, self._hi = self._layout.lo, self._layout.hi
+        self._scratch = None
         self._init_stream(channels, dtype, max(0, -self._lo))
 
     def _reset_position(self):
@@ -160,28 +146,51 @@ class PolyphaseConverter(_Streaming):
 
     def _blocks_ready(self):
         end = self._buf_start + self._buf.shape[1]
-        # block q is ready when q*stride + hi <= end
+        # row q is ready when q*stride + hi <= end
         avail = (end - self._hi) // self._stride + 1
         return max(0, avail - self._q)
 
+    def _frame(self, nq):
+        """The inputs of rows q .. q+nq-1, channels end to end with a stride of P*S frames.
+
+        Row i of the flat array then starts at i*S for every channel (channel c's row q is
+        i = c*P + q), so one product covers all channels; the few rows between channels read
+        across the boundary and are dropped.
+        """
+        lay, S = self._layout, self._stride
+        first = self._q * S - self._buf_start + lay.lo
+        need = (nq - 1) * S + lay.hi - lay.lo
+        if self.channels == 1:
+            return self._buf[0, first:first + need], nq
+        P = nq + -(-(lay.hi - lay.lo) // S)
+        if self._scratch is None or self._scratch.size < self.channels * P * S:
+            self._scratch = np.empty(self.channels * P * S, dtype=self.dtype)
+        frame = self._scratch[:self.channels * P * S].reshape(self.channels, P * S)
+        frame[:, :need] = self._buf[:, first:first + need]
+        frame[:, need:] = 0
+        return frame.reshape(-1), P
+
     def _run(self, nq):
-        C, R, S = self.channels, self._rows, self._stride
-        out = np.empty((C, nq, R), dtype=self.dtype)
-        buf = self._buf
-        item = buf.itemsize
-        base = self._q * S - self._buf_start
-        for g0, g1, lo, width, mat in self._groups:
-            step = max(1, _CHUNK_ELEMENTS // (width * C))
-            for q0 in range(0, nq, step):
-                n = min(step, nq - q0)
-                start = base + q0 * S + lo
-                view = np.lib.stride_tricks.as_strided(
-                    buf[:, start:], shape=(C, n, width),
-                    strides=(buf.strides[0], S * item, item), writeable=False)
-                win = np.ascontiguousarray(view).reshape(C * n, width)
-                out[:, q0:q0 + n, g0:g1] = (win @ mat).reshape(C, n, g1 - g0)
+        C, R, S, lay = self.channels, self._rows, self._stride, self._layout
+        flat, P = self._frame(nq)
+        item = flat.itemsize
+        out = np.empty((C, P, R), dtype=self.dtype)
+        rows = (C - 1) * P + nq
+        step = max(1, _CHUNK_FRAMES // S)   # rows per product: inputs stay in cache
+        for i0 in range(0, rows, step):
+            n = min(step, rows - i0)
+            for st in lay.stacks:
+                start = i0 * S + st.base - lay.lo
+                win = as_strided(flat[start:], shape=(st.groups, n, st.width),
+                                 strides=(st.step * item, S * item, item), writeable=False)
+                if lay.copy:        # overlapping windows: BLAS needs them copied
+                    win = np.ascontiguousarray(win)
+                dst = as_strided(out.reshape(C * P, R)[i0:, st.column:],
+                                 shape=(st.groups, n, st.size),
+                                 strides=(st.size * item, R * item, item))
+                np.matmul(win, st.mats, out=dst)
         self._q += nq
-        return out.reshape(C, nq * R).T
+        return out[:, :nq].reshape(C, nq * R).T
 
     def process(self, block):
         """Feed a frames x channels block; return the output frames now complete."""

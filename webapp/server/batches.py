@@ -77,7 +77,7 @@ def create_batch():
         prepared.append((rec, cid, job, design_id))
     check_names((job.download_name(_stem(rec["name"])), rec["name"])
                 for rec, _, job, _ in prepared)
-    convs = [_queue_conversion(rec, cid, job, design_id, fmt)
+    convs = [_queue_conversion(rec, cid, job, design_id, fmt, spec=job.spec, delivery=delivery)
              for rec, cid, job, design_id in prepared]
     b = web.add_batch(get_db(), batch_id=new_id(), conversion_ids=[c["id"] for c in convs],
                       fs_out=prepared[0][2].fs_out, format=fmt, spec=prepared[0][2].spec.to_dict(),
