@@ -9,6 +9,7 @@ tasks of a lost worker elsewhere (distributed docs, "Resilience").
 import csv
 import hashlib
 import os
+import re
 import signal
 import sqlite3
 import subprocess
@@ -60,6 +61,20 @@ def test_every_output_equals_convert_byte_for_byte(first_run, references):
     assert {r["fs_in"] for r in rows.values() if r["fs_in"]} == {"22050", "44100", "48000",
                                                                   "96000"}
     assert not [p for p in os.listdir(out) if ".partial" in p]
+
+
+def test_the_batch_sheet_holds_each_shared_design_and_every_file_offline(first_run):
+    out, _ = first_run
+    text = (out / "batch-sheet.html").read_text(encoding="utf-8")
+    assert "default-src 'none'" in text                     # nothing may load from elsewhere
+    # plotly.js is inlined whole (its own text holds URLs); the rest of the page holds none
+    rest = re.sub(r'<script id="rf-plotly">.*?</script>', "", text, flags=re.S)
+    assert len(rest) < len(text) - 1_000_000
+    assert "http://" not in rest and "https://" not in rest
+    for rate in (22050, 44100, 48000, 96000):              # one design per route
+        assert f"{rate} Hz &rarr; 16000 Hz" in text
+    assert len(re.findall(r'data-plot="r\d-response"', text)) == 4
+    assert text.count('<tr class="done">') == 12 and text.count('<tr class="failed">') == 1
 
 
 def test_corrupt_file_is_reported_with_converts_own_line(first_run, references):

@@ -20,6 +20,7 @@ from .. import __version__
 from ..jsontools import jsonable
 from ..recipe import write_json_atomic
 from .. import sheet as design_sheet
+from .. import sheet_plots
 
 __all__ = ["REPORT_FIELDS", "REPORT_NAMES", "file_row", "write_reports", "batch_sheet_html"]
 
@@ -163,9 +164,9 @@ def batch_sheet_html(rows, plans, *, created, cluster=""):
         prefix = f"r{i}-"
         route = _Route(plan)
         figs = jsonable(plan.figures())
-        for name, p in design_sheet._response_plots(route).items():
+        for name, p in sheet_plots.response_plots(route).items():
             plots[prefix + name] = p
-        plots[prefix + "impulse"] = design_sheet._impulse_plot(route)
+        plots[prefix + "impulse"] = sheet_plots.impulse_plot(route)
         sections.append(f'<h2 class="route-title">Design {i + 1}: {plan.fs_in} Hz &rarr; '
                         f"{plan.fs_out} Hz</h2>")
         sections.append(design_sheet._route_html(route, figs, prefix))
@@ -188,7 +189,8 @@ def batch_sheet_html(rows, plans, *, created, cluster=""):
         f'<meta http-equiv="Content-Security-Policy" content="{design_sheet._CSP}">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f'<meta name="generator" content="Rateferry {_esc(__version__)}">',
-        f"<title>{_esc(title)}</title><style>{design_sheet._CSS}{_EXTRA_CSS}</style></head>"
+        f"<title>{_esc(title)}</title>"
+        f"<style>\n{design_sheet._asset('sheet.css')}{_EXTRA_CSS}</style></head>"
         "<body><main>",
         head, table, *sections,
         f"<footer><p>Rateferry {_esc(__version__)} &middot; batch sheet made "
@@ -196,5 +198,5 @@ def batch_sheet_html(rows, plans, *, created, cluster=""):
         design_sheet._json_script("rf-report", dict(counts=counts, files=rows)),
         design_sheet._json_script("rf-plots", plots),
         f'<script id="rf-plotly">{design_sheet._plotly_js()}</script>',
-        f"<script>{design_sheet._SCRIPT}</script></body></html>\n",
+        f"<script>\n{design_sheet._asset('sheet.js')}</script></body></html>\n",
     ])
