@@ -133,7 +133,10 @@ def decimated_mono(source, rate_hz, analysis_rate_hz, *, block_frames=1 << 16):
     (ndarray, int)
         The float32 decimated signal and the number of source frames read.
     """
-    conv = make_converter(_decimator_design(rate_hz, analysis_rate_hz), channels=1)
+    if rate_hz == analysis_rate_hz:
+        conv = None          # already at the analysis rate: mono mix only
+    else:
+        conv = make_converter(_decimator_design(rate_hz, analysis_rate_hz), channels=1)
     parts, frames = [], 0
     for block in _blocks(source, block_frames):
         b = np.asarray(block)
@@ -146,8 +149,10 @@ def decimated_mono(source, rate_hz, analysis_rate_hz, *, block_frames=1 << 16):
             raise ParameterError("audio must be finite numbers; a block holds NaN or infinity",
                                  "block")
         frames += b.shape[0]
-        parts.append(conv.process(b.astype(np.float32, copy=False)[:, None])[:, 0])
-    parts.append(conv.flush()[:, 0])
+        b = b.astype(np.float32)
+        parts.append(b if conv is None else conv.process(b[:, None])[:, 0])
+    if conv is not None:
+        parts.append(conv.flush()[:, 0])
     return np.concatenate(parts), frames
 
 
@@ -167,7 +172,12 @@ def gcc_phat_delay(ref_seg, track_seg, rate_hz, lag_range, *, band_hz=None, refi
     """
     r = np.asarray(ref_seg, dtype=np.float64)
     g = np.asarray(track_seg, dtype=np.float64)
-    n_fft = 1 << int(math.ceil(math.log2(r.size + g.size)))
+    if g.size < r.size + int(lag_range[1]):
+        raise ParameterError(f"the track segment ({g.size} frames) must hold the reference "
+                             f"segment ({r.size}) at every lag up to {lag_range[1]}", "lag_range")
+    # lags 0..k_hi never wrap when the transform is as long as the track segment: the product
+    # below is the linear correlation there (the other lags only serve as sidelobes)
+    n_fft = 1 << int(math.ceil(math.log2(g.size)))
     R = np.fft.rfft(r, n_fft)
     G = np.fft.rfft(g, n_fft)
     cross = G * np.conj(R)
@@ -188,7 +198,7 @@ def gcc_phat_delay(ref_seg, track_seg, rate_hz, lag_range, *, band_hz=None, refi
     peak = c[k0]
     exclude = max(2, int(round(_EXCLUDE_S * rate_hz)))
     near = np.take(c, np.arange(k0 - exclude, k0 + exclude + 1), mode="wrap")
-    side_energy = max(0.0, float(np.dot(c, c)) - float(np.dot(near, near)))
+    side_energy = max(0.0, float(np.sum(c * c)) - float(np.sum(near * near)))
     side_rms = math.sqrt(side_energy / max(1, n_fft - near.size))
     ratio_db = 20 * math.log10(abs(peak) / side_rms) if side_rms > 0 else float("inf")
     if not refine:
