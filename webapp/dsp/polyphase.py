@@ -265,6 +265,7 @@ class ArbitraryConverter(_Streaming):
         table = table[:, used[0]:used[-1] + 1]
         self._i = i[used[0]:used[-1] + 1]
         self._table = table.astype(dtype)
+        self._table_asc = np.ascontiguousarray(self._table[:, ::-1])
         self.taps_per_phase = self._table.shape[1]
         self.numtaps = h.size
         self._reach_back = int(self._i[-1])   # inputs down to a - i_max
@@ -308,14 +309,16 @@ class ArbitraryConverter(_Streaming):
         out = np.empty((C, count), dtype=self.dtype)
         width = self._table.shape[1]
         step = max(1, min(1 << 18, (1 << 18) // (width * C)))
-        rev = -self._i  # input offsets relative to a
+        # windows as rows of a sliding view, inputs ascending from a - i_max; the table is
+        # stored in that order (column j holds offset i_max - j), so no per-output reversal
+        table = self._table_asc
+        windows = np.lib.stride_tricks.sliding_window_view(self._buf, width, axis=1)
         for s in range(0, count, step):
             n = min(step, count - s)
             a, p, eta = self._positions(self._n + s, n)
-            coef = self._table[p] * (1 - eta)[:, None].astype(self.dtype) \
-                + self._table[p + 1] * eta[:, None].astype(self.dtype)
-            idx = (a - self._buf_start)[:, None] + rev[None, :]
-            win = self._buf[:, idx]                       # C x n x width
+            coef = table[p] * (1 - eta)[:, None].astype(self.dtype) \
+                + table[p + 1] * eta[:, None].astype(self.dtype)
+            win = windows[:, a - self._buf_start - self._reach_back]   # C x n x width
             out[:, s:s + n] = np.einsum("cnk,nk->cn", win, coef, optimize=False)
         self._n += count
         return out.T
