@@ -196,8 +196,8 @@ def speed_change(fs_in, fs_out, speed):
     Examples
     --------
     >>> c = speed_change(48000, 48000, "1000/1001")
-    >>> (c.up, c.down, c.output_length(1001))
-    (1001, 1000, 1002)
+    >>> (c.up, c.down, c.output_length(1000))
+    (1001, 1000, 1001)
     """
     fs_in = validate_rate(fs_in, field="fs_in")
     fs_out = validate_rate(fs_out, field="fs_out")
