@@ -25,7 +25,8 @@ _CHILD = textwrap.dedent("""
     kind, src, dst = sys.argv[1:4]
     t0 = time.perf_counter()
     if kind == "rateferry":
-        from webapp.pipeline import convert_file, Delivery
+        from webapp.jobs import convert_file
+        from webapp.delivery import Delivery
         from webapp.dsp.spec import preset
         convert_file(src, dst, spec=preset("music_delivery"), fs_out=48000,
                      delivery=Delivery(bits="16", dither="tpdf"))

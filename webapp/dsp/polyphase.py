@@ -419,8 +419,10 @@ def make_converter(design, *, channels=1, dtype=None, time_base=None):
     ``down``, ``start_frames`` and ``frames_out``), the design must be on the arbitrary path; the
     converter then runs at the time base's real ratio and start instead of the design's route.
     """
-    stages = getattr(design, "stages", None)
+    stages = getattr(design, "stages", None)   # a Plan (one or more stages) or a Design
     if time_base is not None:
+        if stages is not None and len(stages) == 1:
+            design, stages = stages[0], None
         if stages is not None or design.path != "arbitrary":
             raise ParameterError("a time base needs a single-stage design on the arbitrary-ratio "
                                  f"path, got {getattr(design, 'path', 'a multistage plan')}",
@@ -430,6 +432,8 @@ def make_converter(design, *, channels=1, dtype=None, time_base=None):
                                   delay=design.delay_samples, start=time_base.start_frames,
                                   frames_out=time_base.frames_out)
     if stages is not None:
+        if len(stages) == 1:
+            return make_converter(stages[0], channels=channels, dtype=dtype)
         parts = [make_converter(s, channels=channels, dtype=dtype) for s in stages]
         return CascadeConverter(parts, design.up, design.down)
     dtype = dtype or design.spec.arithmetic
