@@ -1,0 +1,125 @@
+"""Meter cost per hour of stereo audio beside the cost of a conversion, in one run.
+
+Run: ``python benchmarks/bench_meters.py [--seconds 20] [--block 65536]``.
+
+Rows (seconds of work per hour of stereo audio, best of three, BLAS held to one thread as in
+the pipeline):
+
+* the conversion 44.1 -> 48 kHz with the "music_delivery" mask (120 dB, float64), the
+  reference the meters are weighed against;
+* the loudness meter (K-weighting and 100 ms sums);
+* the true-peak meter (16x) on programme-like noise (most rows skip the second stage) and on a
+  full-scale sine (none skip: the worst case);
+* the true peak as plain scipy would do it: ``scipy.signal.upfirdn`` 16x with the same
+  interpolator as one FIR, then the largest magnitude;
+* the 16-bit quantiser with TPDF and with shaped dither.
+
+Figures only; nothing here asserts a time.
+"""
+
+import argparse
+import os
+import sys
+import time
+
+import numpy as np
+from scipy import signal
+from threadpoolctl import threadpool_limits
+
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+
+from webapp.dsp.design import design  # noqa: E402
+from webapp.dsp.dither import Quantizer  # noqa: E402
+from webapp.dsp.loudness import LoudnessMeter, TruePeakMeter  # noqa: E402
+from webapp.dsp.oversample import prototype  # noqa: E402
+from webapp.dsp.polyphase import make_converter  # noqa: E402
+from webapp.dsp.spec import preset  # noqa: E402
+
+RATE_HZ = 48000
+SOURCE_RATE_HZ = 44100
+
+
+def best_of(runs, fn):
+    times = []
+    for _ in range(runs):
+        start = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - start)
+    return min(times)
+
+
+def programme(seconds, rate_hz, rng):
+    """Noise under a slow, deep envelope: peaks are rare, as in programme material."""
+    n = int(seconds * rate_hz)
+    t = np.arange(n) / rate_hz
+    envelope = (0.2 + np.abs(np.sin(2 * np.pi * 0.37 * t))) ** 3
+    return 0.1 * rng.standard_normal((n, 2)) * envelope[:, None]
+
+
+def streamed(make, x, block):
+    def run():
+        meter = make()
+        for i in range(0, x.shape[0], block):
+            meter.process(x[i:i + block])
+        meter.result()
+    return run
+
+
+def conversion(x, block):
+    d = design(preset("music_delivery"), SOURCE_RATE_HZ, RATE_HZ)
+
+    def run():
+        conv = make_converter(d, channels=2)
+        for i in range(0, x.shape[0], block):
+            conv.process(x[i:i + block])
+        conv.flush()
+    return run
+
+
+def plain_true_peak(x):
+    h, _ = prototype()
+    return lambda: np.abs(signal.upfirdn(h, x, 16, axis=0)).max(axis=0)
+
+
+def rows(seconds, block):
+    rng = np.random.default_rng(1)
+    x = programme(seconds, RATE_HZ, rng)
+    source = programme(seconds, SOURCE_RATE_HZ, rng)
+    sine = np.repeat(0.9 * np.sin(2 * np.pi * 997 * np.arange(x.shape[0]) / RATE_HZ)[:, None], 2, axis=1)
+    per_hour = 3600.0 / seconds
+    out = [
+        ("conversion 44.1 -> 48 kHz, music_delivery (reference)",
+         best_of(3, conversion(source, block)) * per_hour),
+        ("loudness meter", best_of(3, streamed(lambda: LoudnessMeter(rate_hz=RATE_HZ, channels=2), x, block))
+         * per_hour),
+        ("true-peak meter 16x, programme-like noise",
+         best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), x, block)) * per_hour),
+        ("true-peak meter 16x, full-scale sine (worst case)",
+         best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), sine, block)) * per_hour),
+    ]
+    short = x[: int(RATE_HZ * min(seconds, 5.0))]
+    out.append(("true peak, plain scipy upfirdn 16x (same FIR)",
+                best_of(1, plain_true_peak(short)) * 3600.0 * RATE_HZ / short.shape[0]))
+    for dither in ("tpdf", "shaped"):
+        quantizer = Quantizer(bits="16", dither=dither, channels=2, rate_hz=RATE_HZ)
+        spent = best_of(1, lambda q=quantizer: q.process(short))
+        out.append((f"16-bit quantiser, dither={dither}", spent * 3600.0 * RATE_HZ / short.shape[0]))
+    return out
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--seconds", type=float, default=20.0)
+    parser.add_argument("--block", type=int, default=65536)
+    args = parser.parse_args(argv)
+    with threadpool_limits(limits=1, user_api="blas"):
+        table = rows(args.seconds, args.block)
+    print(f"stereo {RATE_HZ} Hz, {args.seconds:g} s of audio, blocks of {args.block} frames, BLAS 1 thread")
+    print(f"{'':56s}  s per hour of stereo")
+    for name, seconds_per_hour in table:
+        print(f"{name:56s}  {seconds_per_hour:8.2f}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
