@@ -1,4 +1,4 @@
-"""Meter cost per hour of stereo audio beside the cost of a conversion, in one run.
+"""Meter and limiter cost per hour of stereo audio beside the cost of a conversion, in one run.
 
 Run: ``python benchmarks/bench_meters.py [--seconds 20] [--block 65536]``.
 
@@ -10,6 +10,8 @@ the pipeline):
 * the loudness meter (K-weighting and 100 ms sums);
 * the true-peak meter (16x) on programme-like noise (most rows skip the second stage) and on a
   full-scale sine (none skip: the worst case);
+* the true-peak limiter (ceiling -1 dBTP) on the programme pushed 12 dB (it limits often) and
+  on the programme as it is (it seldom needs to);
 * the true peak as plain scipy would do it: ``scipy.signal.upfirdn`` 16x with the same
   interpolator as one FIR, then the largest magnitude;
 * the 16-bit quantiser with TPDF and with shaped dither.
@@ -30,6 +32,7 @@ sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."
 
 from webapp.dsp.design import design  # noqa: E402
 from webapp.dsp.dither import Quantizer  # noqa: E402
+from webapp.dsp.limiter import TruePeakLimiter  # noqa: E402
 from webapp.dsp.loudness import LoudnessMeter, TruePeakMeter  # noqa: E402
 from webapp.dsp.oversample import prototype  # noqa: E402
 from webapp.dsp.polyphase import make_converter  # noqa: E402
@@ -76,6 +79,15 @@ def conversion(x, block):
     return run
 
 
+def limited(x, block):
+    def run():
+        limiter = TruePeakLimiter(rate_hz=RATE_HZ, channels=2, ceiling_dbtp=-1.0)
+        for i in range(0, x.shape[0], block):
+            limiter.process(x[i:i + block])
+        limiter.flush()
+    return run
+
+
 def plain_true_peak(x):
     h, _ = prototype()
     return lambda: np.abs(signal.upfirdn(h, x, 16, axis=0)).max(axis=0)
@@ -97,6 +109,9 @@ def rows(seconds, block):
         ("true-peak meter 16x, full-scale sine (worst case)",
          best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), sine, block)) * per_hour),
     ]
+    out.append(("true-peak limiter, programme pushed 12 dB",
+                best_of(3, limited(x * 10 ** (12 / 20), block)) * per_hour))
+    out.append(("true-peak limiter, programme as it is", best_of(3, limited(x, block)) * per_hour))
     short = x[: int(RATE_HZ * min(seconds, 5.0))]
     out.append(("true peak, plain scipy upfirdn 16x (same FIR)",
                 best_of(1, plain_true_peak(short)) * 3600.0 * RATE_HZ / short.shape[0]))

@@ -450,7 +450,7 @@ _ANNEX2_PHASES = np.array([_ANNEX2_PHASE0, _ANNEX2_PHASE1, _ANNEX2_PHASE1[::-1],
 def true_peak_oversampling(rate_hz):
     """Over-sampling factor of the true-peak meter at ``rate_hz``: 16 at every rate.
 
-    The interpolator (:mod:`webapp.dsp.oversample`) is flat to 0.457 fs in normalised
+    The interpolator (:mod:`webapp.dsp.oversample`) is flat to 0.475 fs in normalised
     frequency, so one design serves every rate from 8 kHz to 768 kHz.
     """
     validate_rate(rate_hz, field="rate_hz")
@@ -460,8 +460,8 @@ def true_peak_oversampling(rate_hz):
 def annex2_interpolator():
     """Phase filters (4 x 12) of the BS.1770-4 Annex 2 example interpolator, for comparison.
 
-    The meter does not use them: near Nyquist the example reads up to 0.5 dB low (its
-    passband ends about 0.4 fs); see :mod:`webapp.dsp.oversample` for the interpolator used.
+    The meter does not use them: near Nyquist the example reads low (its passband ends about
+    0.4 fs); see :mod:`webapp.dsp.oversample` for the interpolator used.
     """
     return _ANNEX2_PHASES.copy()
 
@@ -502,9 +502,9 @@ class TruePeakMeter:
     Notes
     -----
     The signal is over-sampled 16x by the two-stage interpolator of
-    :mod:`webapp.dsp.oversample` (a 40-tap equiripple half-band, then an 8-phase Kaiser
-    windowed sinc), the same design at every rate: within about 0.02 dB of the band-limited
-    reconstruction from 0 to 0.457 fs, plus a sampling-grid error of at most 0.035 dB there
+    :mod:`webapp.dsp.oversample` (a 64-tap equiripple half-band, then an 8-phase Kaiser
+    windowed sinc), the same design at every rate: within about 0.022 dB of the band-limited
+    reconstruction from 0 to 0.475 fs, plus a sampling-grid error of at most 0.038 dB there
     (``1 - cos(pi f / (16 fs))``). BS.1770-4 Annex 2 asks for at least 4x and allows a better
     interpolator than its example, which reads up to 0.5 dB low near Nyquist. The grid
     includes the samples themselves, so the true peak is never below the sample peak. The
@@ -512,7 +512,7 @@ class TruePeakMeter:
     lets the filter ring out without changing the state): an abrupt start or stop is a step
     that the band-limited reconstruction overshoots, and the meter reports that overshoot.
 
-    Cost: about 280 multiply-adds per frame and channel in float32 matrix products (relative
+    Cost: about 300 multiply-adds per frame and channel in float32 matrix products (relative
     error about 1e-7, i.e. 1e-6 dB); rows that cannot raise the peak skip the second stage
     (see ``benchmarks/bench_meters.py``).
     """

@@ -9,20 +9,21 @@ Design (ours; BS.1770-4 Annex 2 allows any interpolator of at least 4x that does
 Two stages, each a polyphase matrix product over strided windows:
 
 1. 2x by a half-band interpolator: the even outputs are the samples themselves, the odd
-   output (the point halfway between frames n and n + 1) is a 40-tap equiripple
-   (Parks-McClellan, ``scipy.signal.remez``) filter with amplitude 1 +- 0.0017 (0.014 dB)
-   from 0 to 0.457 fs. A half-band's image rejection equals its passband ripple: -55.7 dB.
+   output (the point halfway between frames n and n + 1) is a 64-tap equiripple
+   (Parks-McClellan, ``scipy.signal.remez``) filter with amplitude 1 +- 0.0024 (0.021 dB)
+   from 0 to 0.475 fs. A half-band's image rejection equals its passband ripple: -52.5 dB.
 2. 8x from the 2x stream by a Kaiser-windowed sinc (beta 7, 8 taps per phase, 7 phases; the
-   eighth phase is the 2x sample itself): flat within 0.006 dB up to 0.2285 of the 2x rate
-   (= 0.457 fs) and -64 dB on its images, which begin at 0.7715 of the 2x rate.
+   eighth phase is the 2x sample itself): flat within 0.006 dB up to 0.2375 of the 2x rate
+   (= 0.475 fs), about -60 dB on its images.
 
-Over 0 .. 0.457 fs at any rate (21.9 kHz at 48 kHz, 20.2 kHz at 44.1 kHz, 3.66 kHz at 8 kHz)
-the reconstruction errs by at most about 0.02 dB; the grid of 16 points per frame adds a
-sampling-grid error of at most ``1 - cos(pi f / (16 fs))``, 0.035 dB at 0.457 fs. Content
-between 0.457 fs and fs/2 is read lower (the half-band's transition band).
+As one 16x FIR (:func:`prototype`) the response is flat within 0.022 dB from 0 to 0.475 fs
+(22.8 kHz at 48 kHz, 20.9 kHz at 44.1 kHz, 3.8 kHz at 8 kHz), -6 dB at fs/2, images below
+-54 dB; the grid of 16 points per frame adds a sampling-grid error of at most
+``1 - cos(pi f / (16 fs))``, 0.038 dB at 0.475 fs. Content between 0.475 fs and fs/2 (hard
+clipping puts some there) is read lower, as by any finite interpolator.
 
-Cost: the first stage is 40 multiply-adds per frame and channel, the second 7 x 8 per 2x
-sample, 112 per frame; with the grouping into products below about 75 + 2 x 104 BLAS
+Cost: the first stage is 64 multiply-adds per frame and channel, the second 7 x 8 per 2x
+sample, 112 per frame; with the grouping into products below about 95 + 210 BLAS
 multiply-adds per frame in float32 (relative error about 1e-7, 1e-6 dB). Rows of the second
 stage that cannot reach a given floor are skipped (see :class:`PeakInterpolator`).
 """
@@ -39,8 +40,8 @@ __all__ = ["OVERSAMPLING", "PASSBAND_FRACTION", "InterpolatorDesign", "interpola
            "prototype", "PeakInterpolator"]
 
 OVERSAMPLING = 16
-PASSBAND_FRACTION = 0.457      # of the sample rate: the band the interpolator is flat over
-_HALF_TAPS = 40                # first stage: taps of the half-way point
+PASSBAND_FRACTION = 0.475      # of the sample rate: the band the interpolator is flat over
+_HALF_TAPS = 64                # first stage: taps of the half-way point
 _FINE_PHASES = 8               # second stage: points per 2x sample
 _FINE_TAPS = 8                 # second stage: taps per phase
 _FINE_BETA = 7.0               # Kaiser window of the second stage
@@ -55,12 +56,12 @@ class InterpolatorDesign:
 
     Attributes
     ----------
-    half : ndarray, shape (40,)
-        Taps of the half-way point: ``x(n + 1/2) = sum_i half[i] x[n - 19 + i]``.
+    half : ndarray, shape (64,)
+        Taps of the half-way point: ``x(n + 1/2) = sum_i half[i] x[n - 31 + i]``.
     fine : ndarray, shape (7, 8)
         Row p - 1 gives ``z(m + p/8) = sum_i fine[p - 1, i] z[m - 3 + i]`` on the 2x stream z.
     half_ripple : float
-        Largest |amplitude - 1| of the first stage over 0 .. 0.457 fs (also its image level).
+        Largest |amplitude - 1| of the first stage over 0 .. 0.475 fs (also its image level).
     fine_gain : float
         Largest sum of |taps| of a second-stage phase (the bound used to skip rows).
     """
@@ -103,7 +104,7 @@ def prototype():
     centre1 = _HALF_TAPS - 1
     h1[centre1] = 1.0
     for i, tap in enumerate(d.half):
-        # tap i multiplies x[n - 19 + i] for the point n + 1/2: offset 2(n + 1/2) - 2(n - 19 + i)
+        # tap i multiplies x[n - 31 + i] for the point n + 1/2: offset 2(n + 1/2) - 2(n - 31 + i)
         h1[centre1 + 2 * (_HALF_TAPS // 2 - 1 - i) + 1] = tap
     h2 = np.zeros(_FINE_PHASES * _FINE_TAPS + 1)
     centre2 = _FINE_PHASES * (_FINE_TAPS // 2)
@@ -138,7 +139,7 @@ def _windows(data, rows, width, step):
         writeable=False)
 
 
-# frames of context a chunk needs: half-way points need 19 before and 20 after; the second
+# frames of context a chunk needs: half-way points need 31 before and 32 after; the second
 # stage needs 2x samples 3 before and 4 after each frame's two, i.e. 2 frames either side.
 _CONTEXT = 2
 _BEFORE = _HALF_TAPS // 2 - 1 + _CONTEXT
