@@ -380,7 +380,7 @@ def recipe_from_result(result, *, block_frames=None, created=None, source_name=N
                   "up": int(design.up), "down": int(design.down)},
         "spec": jsonable(result.spec.to_dict()),
         "design": jsonable(_without_timings(design.figures())),
-        "delivery": jsonable(result.delivery.to_dict()),
+        "delivery": jsonable(_recipe_delivery(result.delivery)),
         "gain_db": float(result.gain_db),
         "gain_reason": result.gain_reason,
         "block_frames": _block_frames_of(result, block_frames),
@@ -1410,6 +1410,16 @@ def _spectra_html(spectra, note):
         h.append(f'<p class="reason">Spectra not available: {_esc(note)}.</p>')
     h.append("</section>")
     return "".join(h)
+
+
+# The Delivery fields recipe version 1 records. The fields added for issue 13 (limiter, channel
+# layout, MP3, loudness tolerance) are not applied by the pipeline yet; the recipe version grows
+# when they are.
+_RECIPE_V1_DELIVERY = ("bits", "dither", "dither_seed", "ceiling_dbtp", "loudness_lufs")
+
+
+def _recipe_delivery(delivery):
+    return {k: v for k, v in delivery.to_dict().items() if k in _RECIPE_V1_DELIVERY}
 
 
 def _delivery_html(result, output_name):
