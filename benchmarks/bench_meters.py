@@ -1,6 +1,7 @@
 """Meter and limiter cost per hour of stereo audio beside the cost of a conversion, in one run.
 
-Run: ``python benchmarks/bench_meters.py [--seconds 20] [--block 65536]``.
+Run: ``python benchmarks/bench_meters.py [--seconds 20] [--block 65536]`` (the runner,
+``python -m benchmarks``, takes its figures from ``main()``).
 
 Rows (seconds of work per hour of stereo audio, best of three, BLAS held to one thread as in
 the pipeline):
@@ -93,33 +94,38 @@ def plain_true_peak(x):
     return lambda: np.abs(signal.upfirdn(h, x, 16, axis=0)).max(axis=0)
 
 
-def rows(seconds, block):
+def figures(seconds, block):
     rng = np.random.default_rng(1)
     x = programme(seconds, RATE_HZ, rng)
     source = programme(seconds, SOURCE_RATE_HZ, rng)
     sine = np.repeat(0.9 * np.sin(2 * np.pi * 997 * np.arange(x.shape[0]) / RATE_HZ)[:, None], 2, axis=1)
     per_hour = 3600.0 / seconds
-    out = [
-        ("conversion 44.1 -> 48 kHz, music_delivery (reference)",
-         best_of(3, conversion(source, block)) * per_hour),
-        ("loudness meter", best_of(3, streamed(lambda: LoudnessMeter(rate_hz=RATE_HZ, channels=2), x, block))
-         * per_hour),
-        ("true-peak meter 16x, programme-like noise",
-         best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), x, block)) * per_hour),
-        ("true-peak meter 16x, full-scale sine (worst case)",
-         best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), sine, block)) * per_hour),
+    conv = best_of(3, conversion(source, block)) * per_hour
+    reference = "conversion 44.1 -> 48 kHz, music_delivery (120 dB, float64)"
+
+    def row(name, value):
+        return dict(name=name, value=value, unit="s/hour", reference=reference, reference_value=conv,
+                    ratio=value / conv)
+
+    rows = [
+        row("loudness meter", best_of(3, streamed(lambda: LoudnessMeter(rate_hz=RATE_HZ, channels=2),
+                                                  x, block)) * per_hour),
+        row("true-peak meter 16x, programme-like noise",
+            best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), x, block)) * per_hour),
+        row("true-peak meter 16x, full-scale sine (worst case)",
+            best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), sine, block)) * per_hour),
+        row("true-peak limiter, programme pushed 12 dB",
+            best_of(3, limited(x * 10 ** (12 / 20), block)) * per_hour),
+        row("true-peak limiter, programme as it is", best_of(3, limited(x, block)) * per_hour),
     ]
-    out.append(("true-peak limiter, programme pushed 12 dB",
-                best_of(3, limited(x * 10 ** (12 / 20), block)) * per_hour))
-    out.append(("true-peak limiter, programme as it is", best_of(3, limited(x, block)) * per_hour))
     short = x[: int(RATE_HZ * min(seconds, 5.0))]
-    out.append(("true peak, plain scipy upfirdn 16x (same FIR)",
-                best_of(1, plain_true_peak(short)) * 3600.0 * RATE_HZ / short.shape[0]))
+    rows.append(row("true peak, plain scipy upfirdn 16x (same FIR)",
+                    best_of(1, plain_true_peak(short)) * 3600.0 * RATE_HZ / short.shape[0]))
     for dither in ("tpdf", "shaped"):
         quantizer = Quantizer(bits="16", dither=dither, channels=2, rate_hz=RATE_HZ)
         spent = best_of(1, lambda q=quantizer: q.process(short))
-        out.append((f"16-bit quantiser, dither={dither}", spent * 3600.0 * RATE_HZ / short.shape[0]))
-    return out
+        rows.append(row(f"16-bit quantiser, dither={dither}", spent * 3600.0 * RATE_HZ / short.shape[0]))
+    return rows
 
 
 def main(argv=None):
@@ -128,13 +134,15 @@ def main(argv=None):
     parser.add_argument("--block", type=int, default=65536)
     args = parser.parse_args(argv)
     with threadpool_limits(limits=1, user_api="blas"):
-        table = rows(args.seconds, args.block)
-    print(f"stereo {RATE_HZ} Hz, {args.seconds:g} s of audio, blocks of {args.block} frames, BLAS 1 thread")
-    print(f"{'':56s}  s per hour of stereo")
-    for name, seconds_per_hour in table:
-        print(f"{name:56s}  {seconds_per_hour:8.2f}")
-    return 0
+        rows = figures(args.seconds, args.block)
+    return dict(title=f"meters, limiter and quantiser, stereo {RATE_HZ} Hz, {args.seconds:g} s of "
+                      f"audio, blocks of {args.block} frames, BLAS 1 thread, seconds per hour of audio",
+                figures=rows)
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    result = main()
+    print(result["title"])
+    for r in result["figures"]:
+        print(f"{r['name']:52s}  {r['value']:8.2f}   | {r['reference']}: {r['reference_value']:.2f} "
+              f"(x{r['ratio']:.2f})")
