@@ -46,6 +46,15 @@ __all__ = ["RECIPE_SCHEMA", "RECIPE_VERSION", "SCHEMA_PATH", "RECIPE_MAX_BYTES",
 
 RECIPE_SCHEMA = "rateferry-recipe"
 RECIPE_VERSION = 1
+# The Delivery fields recipe version 1 records. The fields added for limiter, channel layout,
+# MP3 and loudness tolerance are not applied by the pipeline yet; the recipe version grows when
+# they are.
+RECIPE_V1_DELIVERY = ("bits", "dither", "dither_seed", "ceiling_dbtp", "loudness_lufs")
+
+
+def recipe_delivery(delivery):
+    """The part of ``delivery.to_dict()`` this recipe version records."""
+    return {k: v for k, v in delivery.to_dict().items() if k in RECIPE_V1_DELIVERY}
 SCHEMA_PATH = os.path.join(os.path.dirname(os.path.abspath(__file__)), "schemas",
                            "recipe.schema.json")
 #: A recipe is a few kilobytes; anything far larger is not one (and is not read into memory).
@@ -312,7 +321,7 @@ def recipe_from_result(result, *, block_frames=None, created=None, source_name=N
                   "up": int(design.up), "down": int(design.down)},
         "spec": jsonable(result.spec.to_dict()),
         "design": jsonable(_without_timings(design.figures())),
-        "delivery": jsonable(result.delivery.to_dict()),
+        "delivery": jsonable(recipe_delivery(result.delivery)),
         "gain_db": float(result.gain_db),
         "gain_reason": result.gain_reason,
         "block_frames": _block_frames_of(result, block_frames),
