@@ -6,12 +6,8 @@ spec's ripple (physics); float input stays float (soundfile subtype).
 """
 
 import json
-import math
-import os
 
-import numpy as np
 import pytest
-import soundfile as sf
 
 from webapp.cli import main
 

@@ -17,7 +17,7 @@ import pytest
 import soundfile as sf
 
 from webapp.cli import main
-from webapp.dsp.errors import AudioFileError, ParameterError
+from webapp.dsp.errors import AudioFileError
 from webapp.dsp.loudness import integrated_loudness, true_peak
 from webapp.dsp.spec import Spec, preset
 from webapp.delivery import Delivery

@@ -12,7 +12,7 @@ conversion uses. JSON keys equal the field names.
 from dataclasses import asdict, dataclass, field, fields, replace
 import math
 
-from .delivery import CHANNEL_LAYOUTS, MP3_MODES, Delivery
+from .delivery import Delivery
 from .dsp.errors import ParameterError
 from .dsp.rates import validate_rate
 from .dsp.spec import PRESETS

@@ -34,7 +34,6 @@ from functools import lru_cache
 import numpy as np
 from scipy import signal
 
-from .errors import ParameterError
 
 __all__ = ["OVERSAMPLING", "PASSBAND_FRACTION", "InterpolatorDesign", "interpolator_design",
            "prototype", "PeakInterpolator"]
