@@ -3,7 +3,6 @@
 Bad input ends with one line, ``rateferry: error: <rule and value>``, exit code 2, nothing written.
 """
 
-import argparse
 import json
 import math
 import os
@@ -14,17 +13,22 @@ from . import __version__
 from .dsp.dither import DITHERS, WORD_LENGTHS
 from .dsp.errors import RateferryError
 from .dsp.spec import PRESETS, DEFAULT_PRESET, preset, spec_from_dict
+from .cli_args import OneLineParser, number_arg, rate_arg, whole_arg
 from .jsontools import jsonable
 
 EXIT_BAD_INPUT = 2
 
 SPEC_OPTIONS = [
     # flag, spec field, type, help
-    ("--passband", "passband_hz", float, "passband edge in Hz (default: a fraction of the lower Nyquist)"),
-    ("--passband-fraction", "passband_fraction", float, "passband edge as a fraction of the lower Nyquist"),
-    ("--stopband", "stopband_hz", float, "stopband edge in Hz (default: the lower Nyquist)"),
-    ("--ripple", "ripple_db", float, "largest passband deviation, +- dB"),
-    ("--attenuation", "attenuation_db", float, "smallest stopband rejection, dB"),
+    ("--passband", "passband_hz", number_arg("--passband", unit="Hz"),
+     "passband edge in Hz (default: a fraction of the lower Nyquist)"),
+    ("--passband-fraction", "passband_fraction", number_arg("--passband-fraction"),
+     "passband edge as a fraction of the lower Nyquist"),
+    ("--stopband", "stopband_hz", number_arg("--stopband", unit="Hz"),
+     "stopband edge in Hz (default: the lower Nyquist)"),
+    ("--ripple", "ripple_db", number_arg("--ripple", unit="dB"), "largest passband deviation, +- dB"),
+    ("--attenuation", "attenuation_db", number_arg("--attenuation", unit="dB"),
+     "smallest stopband rejection, dB"),
     ("--phase", "phase", str, "linear | minimum"),
     ("--method", "method", str, "auto | kaiser | equiripple | least-squares"),
     ("--arithmetic", "arithmetic", str, "float32 | float64"),
@@ -210,21 +214,23 @@ def cmd_clean(args):
 
 
 def build_parser():
-    ap = argparse.ArgumentParser(prog="rateferry",
+    ap = OneLineParser(prog="rateferry",
                                  description="Sample-rate conversion with a verified filter.")
     ap.add_argument("--version", action="version", version=f"rateferry {__version__}")
     sub = ap.add_subparsers(dest="command", required=True)
 
     p = sub.add_parser("design", help="design and measure the filter for a route")
-    p.add_argument("--from", dest="fs_in", type=int, required=True, help="source rate, Hz")
-    p.add_argument("--to", dest="fs_out", type=int, required=True, help="target rate, Hz")
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True,
+                   help="source rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True,
+                   help="target rate, Hz")
     _add_spec_options(p)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_design)
 
     p = sub.add_parser("plans", help="multistage plans against the single stage")
-    p.add_argument("--from", dest="fs_in", type=int, required=True)
-    p.add_argument("--to", dest="fs_out", type=int, required=True)
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True)
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True)
     _add_spec_options(p)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_plans)
@@ -232,18 +238,22 @@ def build_parser():
     p = sub.add_parser("convert", help="convert a file")
     p.add_argument("input")
     p.add_argument("output")
-    p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), help="target rate, Hz")
     _add_spec_options(p)
     p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
                    help="output word length (default: like the source)")
     p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
                    help="dither for 16/24-bit outputs (default tpdf)")
-    p.add_argument("--seed", type=int, default=0, help="dither seed (default 0)")
-    p.add_argument("--ceiling", type=float, default=None,
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0,
+                   help="dither seed (default 0)")
+    p.add_argument("--ceiling", type=number_arg("--ceiling", low=-60.0, high=0.0, unit="dBTP"),
+                   default=None,
                    help="true-peak ceiling in dBTP (gain applied to stay under it)")
-    p.add_argument("--loudness", type=float, default=None,
+    p.add_argument("--loudness", type=number_arg("--loudness", low=-70.0, high=0.0, unit="LUFS"),
+                   default=None,
                    help="integrated loudness target in LUFS")
-    p.add_argument("--block-frames", type=int, default=65536, help="frames per block read")
+    p.add_argument("--block-frames", type=whole_arg("--block-frames", low=1, high=2**24),
+                   default=65536, help="frames per block read")
     p.add_argument("--recipe", help="re-run a recipe (JSON); spec and delivery come from it")
     p.add_argument("--write-recipe", help="save the recipe of this conversion (JSON)")
     p.add_argument("--sheet", help="write a design sheet (self-contained HTML)")
@@ -255,17 +265,17 @@ def build_parser():
     p.set_defaults(func=cmd_convert)
 
     p = sub.add_parser("audit", help="measure the converter on standard test signals")
-    p.add_argument("--from", dest="fs_in", type=int, required=True)
-    p.add_argument("--to", dest="fs_out", type=int, required=True)
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True)
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True)
     _add_spec_options(p)
     p.add_argument("--dither", choices=list(DITHERS), default="none")
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_audit)
 
     p = sub.add_parser("serve", help="run the local web app")
     p.add_argument("--host", default="127.0.0.1")
-    p.add_argument("--port", type=int, default=8765)
+    p.add_argument("--port", type=whole_arg("--port", low=1, high=65535), default=8765)
     p.add_argument("--no-browser", action="store_true")
     p.add_argument("--debug", action="store_true", help="Flask's development server")
     p.add_argument("--instance", default=None, help="instance folder (data, database)")
@@ -273,14 +283,18 @@ def build_parser():
 
     p = sub.add_parser("clean", help="remove old uploads and outputs from the instance folder")
     p.add_argument("--instance", default=None)
-    p.add_argument("--days", type=float, default=7.0)
+    p.add_argument("--days", type=number_arg("--days", low=0.0, high=36500.0, unit="days"),
+                   default=7.0)
     p.set_defaults(func=cmd_clean)
     return ap
 
 
 def main(argv=None):
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:   # a bad option (one line already written), --help, --version
+        return exc.code
     try:
         return args.func(args)
     except RateferryError as exc:

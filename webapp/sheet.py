@@ -49,7 +49,7 @@ from . import __version__
 from . import media
 from . import pipeline
 from .delivery import Delivery
-from .jsontools import jsonable
+from .jsontools import jsonable, loads_checked
 from .dsp.errors import ParameterError, RateferryError
 from .dsp.rates import route as make_route
 from .dsp.spec import Spec, spec_from_dict
@@ -441,10 +441,6 @@ def write_recipe(result, path, *, block_frames=None, created=None, source_name=N
     return data
 
 
-def _reject_constant(name):
-    raise ValueError(f"{name} is not a JSON number")
-
-
 def _read_source(source):
     """Recipe text or dict from a dict, a path, bytes or a binary/text file object."""
     if isinstance(source, dict):
@@ -478,18 +474,10 @@ def _read_source(source):
     if len(raw) > RECIPE_MAX_BYTES:
         raise ParameterError(f"{name} is larger than {RECIPE_MAX_BYTES} bytes; a recipe is a "
                              "few kilobytes of JSON", "recipe")
-    if isinstance(raw, bytes):
-        try:
-            raw = raw.decode("utf-8-sig")
-        except UnicodeDecodeError as exc:
-            raise ParameterError(f"{name} is not UTF-8 text (byte {exc.start})",
-                                 "recipe") from None
-    try:
-        return json.loads(raw, parse_constant=_reject_constant)
-    except ValueError as exc:
-        where = f" at line {exc.lineno}, column {exc.colno}" if hasattr(exc, "lineno") else ""
-        reason = exc.msg if hasattr(exc, "msg") else str(exc)
-        raise ParameterError(f"{name} is not valid JSON{where}: {reason}", "recipe") from None
+    try:   # depth-limited: a recipe nested 100000 levels deep is refused, not recursed
+        return loads_checked(raw, name=name)
+    except ParameterError as exc:
+        raise ParameterError(exc.message, "recipe") from None
 
 
 def _check_version(data):

@@ -18,6 +18,7 @@ from dataclasses import dataclass, asdict, fields, replace
 import math
 
 from .errors import ParameterError
+from .numbers import finite_number
 from .rates import Route
 
 __all__ = ["Spec", "Mask", "PHASES", "METHODS", "ARITHMETICS", "STAGE_CHOICES", "PRESETS",
@@ -137,11 +138,7 @@ def _check_choice(name, value, choices):
 
 
 def _check_number(name, value, low, high, unit):
-    ok = isinstance(value, (int, float)) and not isinstance(value, bool)
-    if not ok or not math.isfinite(value) or not low <= value <= high:
-        unit = f" {unit}" if unit else ""
-        raise ParameterError(f"{name} must be a number from {low:g} to {high:g}{unit}, got {value!r}",
-                             name)
+    finite_number(value, name, low=low, high=high, unit=unit)
 
 
 # Presets are named after the work they serve. Limits are common practice for the trade
@@ -206,9 +203,4 @@ def spec_from_dict(data, *, base=None):
 
 
 def _as_float(name, value):
-    if isinstance(value, bool):
-        raise ParameterError(f"{name} must be a number, got {value!r}", name)
-    try:
-        return float(value)
-    except (TypeError, ValueError):
-        raise ParameterError(f"{name} must be a number, got {value!r}", name) from None
+    return finite_number(value, name, text=True)
