@@ -127,7 +127,7 @@ def _delivery_from_args(args):
 
 
 def cmd_convert(args):
-    from . import pipeline
+    from . import partials, pipeline
     if args.recipe:
         from . import sheet
         recipe = sheet.load_recipe(args.recipe)
@@ -141,6 +141,7 @@ def cmd_convert(args):
         blocksize = args.block_frames
     if args.recipe:
         recipe.check_source(args.input)   # before any work: nothing is written for a wrong source
+    partials.sweep(os.path.dirname(os.path.abspath(args.output)))
     bar = ProgressBar(not args.quiet and not args.json, os.path.basename(args.input))
     result = pipeline.convert_file(args.input, args.output, spec=spec, fs_out=fs_out,
                                    delivery=delivery, blocksize=blocksize, progress=bar)
@@ -295,6 +296,8 @@ def main(argv=None):
         args = parser.parse_args(argv)
     except SystemExit as exc:   # a bad option (one line already written), --help, --version
         return exc.code
+    from . import partials
+    partials.sweep_remembered()   # partial files a crashed (kill -9) run left behind
     try:
         return args.func(args)
     except RateferryError as exc:

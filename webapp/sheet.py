@@ -41,15 +41,15 @@ import json
 import math
 import os
 import re
-import secrets
 
 import numpy as np
 
 from . import __version__
-from . import media
+from . import media, partials
 from . import pipeline
 from .delivery import Delivery
 from .jsontools import jsonable, loads_checked
+from .oserrors import os_error_text
 from .dsp.errors import ParameterError, RateferryError
 from .dsp.rates import route as make_route
 from .dsp.spec import Spec, spec_from_dict
@@ -406,25 +406,23 @@ def _write_atomic(path, text, what):
     if os.path.isdir(path):
         raise ParameterError(f"cannot write the {what} '{name}': a folder of that name exists",
                              what)
-    temp = os.path.join(folder, f".{name}.{secrets.token_hex(6)}.partial")
-    try:
-        with open(temp, "x", encoding="utf-8", newline="\n") as f:
+    partial = None
+    try:   # a partial file in .rateferry-partial/ (webapp.partials): a crash leaves no lookalike
+        partial = partials.create(path)
+        with os.fdopen(partial.fd, "w", encoding="utf-8", newline="\n") as f:
+            partial.fd = None
             f.write(text)
             f.flush()
             os.fsync(f.fileno())
-        os.replace(temp, path)
+        partial.finish()
     except OSError as exc:
-        try:
-            os.unlink(temp)
-        except OSError:
-            pass
-        raise ParameterError(f"cannot write the {what} '{name}': {exc.strerror or exc}",
+        if partial is not None:
+            partial.discard()
+        raise ParameterError(f"cannot write the {what} '{name}': {os_error_text(exc, path)}",
                              what) from None
     except BaseException:
-        try:
-            os.unlink(temp)
-        except OSError:
-            pass
+        if partial is not None:
+            partial.discard()
         raise
     return path
 

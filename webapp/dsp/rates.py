@@ -7,7 +7,6 @@ rational factor ``up/down`` (L/M), with ``fs_out = fs_in * up / down`` exactly.
 from dataclasses import dataclass
 from math import gcd
 
-from .errors import ParameterError
 from .numbers import whole_number
 
 __all__ = ["MIN_RATE_HZ", "MAX_RATE_HZ", "Route", "validate_rate", "route"]

@@ -15,7 +15,6 @@ The spec is the single source of defaults; JSON keys equal these field names.
 """
 
 from dataclasses import dataclass, asdict, fields, replace
-import math
 
 from .errors import ParameterError
 from .numbers import finite_number

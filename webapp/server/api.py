@@ -23,7 +23,7 @@ from .db import get_db, state
 from .errors import ApiError
 from .library import measure, probe_figures
 from .params import (choice, conversion_or_404, integer, json_body, number, rate,
-                     recording_or_404, spec_input)
+                     recording_file_or_410, recording_or_404, spec_input)
 from .uploads import UPLOAD_EXTENSIONS, discard_incoming, display_name, take_upload, \
     upload_extension
 
@@ -212,7 +212,7 @@ def get_recording(recording_id):
 
 @bp.get("/recordings/<recording_id>/audio")
 def recording_audio(recording_id):
-    rec = recording_or_404(recording_id)
+    rec = recording_file_or_410(recording_or_404(recording_id))
     return send_file(rec["path"], mimetype=_MIMETYPES.get(rec["format"],
                                                           "application/octet-stream"),
                      conditional=True, download_name=rec["name"])
@@ -331,7 +331,7 @@ def create_audit():
 @bp.post("/spectra")
 def create_spectra():
     data = json_body()
-    rec = recording_or_404(data.get("recording_id"))
+    rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
     spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
     max_s = current_app.config["EXCERPT_MAX_S"]
     start_s = number(data, "start_s", low=0.0, unit="s")
@@ -375,7 +375,7 @@ def _public_conversion(conv, *, figures=True):
 @bp.post("/conversions")
 def create_conversion():
     data = json_body()
-    rec = recording_or_404(data.get("recording_id"))
+    rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
     if rec.get("analysis") == "failed":
         err = rec.get("analysis_error") or {}
         raise ParameterError(err.get("message", "the recording can't be read"), "recording_id")
@@ -428,13 +428,15 @@ def conversion_events(conversion_id):
     conv = conversion_or_404(conversion_id)
     store = state().store
     interval = float(current_app.config["SSE_INTERVAL_S"])
+    ends = time.monotonic() + float(current_app.config["SSE_MAX_S"])
     cid = conv["id"]
+    release = state().streams.take()   # 503 + Retry-After when all stream slots are taken
 
     def stream():
         last, quiet_since = None, time.monotonic()
         with store.open() as db:
             yield "retry: 1000\n\n"
-            while True:
+            while time.monotonic() < ends:
                 c = db.get_conversion(cid)
                 if c is None:
                     return
@@ -452,8 +454,10 @@ def conversion_events(conversion_id):
                     quiet_since = time.monotonic()
                 time.sleep(interval)
 
-    return Response(stream(), mimetype="text/event-stream",
-                    headers={"Cache-Control": "no-cache", "X-Accel-Buffering": "no"})
+    response = Response(stream(), mimetype="text/event-stream",
+                        headers={"Cache-Control": "no-cache", "X-Accel-Buffering": "no"})
+    response.call_on_close(release)
+    return response
 
 
 @bp.post("/conversions/<conversion_id>/cancel")
@@ -647,13 +651,13 @@ def create_renditions():
     conversion_id = data.get("conversion_id")
     if conversion_id is not None:
         conv = _done_or_409(conversion_or_404(conversion_id))
-        rec = recording_or_404(conv["recording_id"])
+        rec = recording_file_or_410(recording_or_404(conv["recording_id"]))
         plan = st.cache.conversion_plan(spec_module.Spec(**conv["spec"]), conv["fs_in"],
                                         conv["fs_out"])
         converted = dict(path=conv["output_path"], plan=plan)
         conversion_id = conv["id"]
     else:
-        rec = recording_or_404(data.get("recording_id"))
+        rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
         spec, fs_in, fs_out, _ = spec_input(data, fs_in=rec["rate_hz"])
         converted = dict(plan=st.cache.conversion_plan(spec, fs_in, fs_out))
     rid = new_id()

@@ -4,6 +4,8 @@ Every helper raises :class:`ParameterError` (400) or :class:`ApiError` naming th
 value, so a view never sees a half-parsed request.
 """
 
+import os
+
 from flask import request
 
 from webapp.dsp.errors import ParameterError
@@ -16,6 +18,7 @@ from .db import get_db
 from .errors import ApiError
 
 __all__ = ["json_body", "number", "integer", "choice", "rate", "spec_input", "recording_or_404",
+           "recording_file_or_410",
            "conversion_or_404", "design_or_404"]
 
 
@@ -87,6 +90,14 @@ def _row_or_404(kind, value, getter):
 
 def recording_or_404(recording_id):
     return _row_or_404("recording", recording_id, get_db().get_recording)
+
+
+def recording_file_or_410(rec):
+    """``rec`` when its stored file is still on disk; else 410 naming the recording."""
+    if not os.path.isfile(rec["path"]):
+        raise ApiError(410, f"the audio of recording '{rec['name']}' is no longer on disk (it was "
+                            "removed outside the app); upload it again", "recording_id")
+    return rec
 
 
 def conversion_or_404(conversion_id):
