@@ -152,6 +152,8 @@ def cmd_convert(args):
         if args.sheet:
             sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
                               note=args.note)
+    for warning in result.warnings:
+        sys.stderr.write(f"rateferry: warning: {warning}\n")
     figs = result.figures()
     if args.recipe:
         # a re-run is only a reproduction when the bytes are the same as the recipe says
