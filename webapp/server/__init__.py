@@ -16,7 +16,7 @@ Config (``app.config``; defaults below, ``instance/config.py`` or ``test_config`
                         ones are measured in the background (default 600 s).
 ``SSE_INTERVAL_S``      progress event interval (default 0.25 s).
 ``SSE_MAX_STREAMS``     progress streams open at once (default 6; waitress runs 16 threads);
-                        more are answered 503 with Retry-After and the page polls.
+                        more are answered 429 with Retry-After and the page polls.
 ``SSE_MAX_S``           a progress stream ends after this long (default 600 s); the browser
                         reconnects.
 """

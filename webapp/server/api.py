@@ -430,7 +430,7 @@ def conversion_events(conversion_id):
     interval = float(current_app.config["SSE_INTERVAL_S"])
     ends = time.monotonic() + float(current_app.config["SSE_MAX_S"])
     cid = conv["id"]
-    release = state().streams.take()   # 503 + Retry-After when all stream slots are taken
+    release = state().streams.take()   # 429 + Retry-After when all stream slots are taken
 
     def stream():
         last, quiet_since = None, time.monotonic()
