@@ -34,6 +34,7 @@ bp = Blueprint("api", __name__, url_prefix="/api")
 #: URL templates the page reads from its config element.
 URLS = {
     "health": "/api/health",
+    "openapi": "/api/openapi.json",
     "options": "/api/options",
     "recordings": "/api/recordings",
     "recording": "/api/recordings/{id}",
@@ -98,6 +99,17 @@ def _stem(name):
 @bp.get("/health")
 def health():
     return _json(dict(status="ok", version=__version__))
+
+
+@bp.get("/openapi.json")
+def openapi():
+    """The OpenAPI 3.1 description of this API (webapp/server/openapi.json)."""
+    return current_app.response_class(_openapi_text(), mimetype="application/json")
+
+
+def _openapi_text():
+    with open(os.path.join(os.path.dirname(__file__), "openapi.json"), "rb") as f:
+        return f.read()
 
 
 @bp.get("/options")
