@@ -361,3 +361,21 @@ def test_permission_denied_names_the_file(tone):
         assert sorted(os.listdir(folder)) == ["locked.wav"]
     finally:
         shutil.rmtree(folder, ignore_errors=True)
+
+
+# --------------------------------------------------------------------------------------------
+# found by the soak (benchmarks/soak_server.py): a same-rate route with transition aliasing
+
+def test_same_rate_route_with_transition_aliasing_is_designed_not_500(client, headers):
+    # lower rate - passband (48000 - 20400 Hz) lies above the filter's Nyquist (24000 Hz):
+    # the stopband is held at that Nyquist (sampling theorem) instead of reaching scipy.firwin
+    r = client.post("/api/designs", json={"fs_in": 48000, "fs_out": 48000,
+                                          "preset": "quick_preview", "plans": False},
+                    headers=headers)
+    assert r.status_code == 200, r.get_json()
+    assert r.get_json()["mask"]["stopband_hz"] == 24000.0
+    r = client.post("/api/designs", json={"fs_in": 48000, "fs_out": 48000, "plans": False,
+                                          "spec": {"passband_hz": 10000, "stopband_hz": 30000}},
+                    headers=headers)
+    assert _is_400_naming(r, "stopband_hz")
+    assert "at most half the filter's rate (24000 Hz" in r.get_json()["error"]["message"]

@@ -119,3 +119,17 @@ def test_every_operation_survives_generated_requests(live_server):
           + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())))
     assert len(counts) == 28   # every operation of the description was exercised
     assert total >= 300
+
+
+def test_the_description_covers_every_api_route(app):
+    described = json.load(open(SCHEMA_PATH))["paths"]
+    routes = set()
+    for rule in app.url_map.iter_rules():
+        if rule.rule.startswith("/api/"):
+            path = rule.rule.replace("<", "{").replace(">", "}")
+            path = path.replace("{recording_id}", "{id}").replace("{conversion_id}", "{id}") \
+                .replace("{design_id}", "{id}").replace("{rendition_id}", "{id}")
+            for method in rule.methods - {"HEAD", "OPTIONS"}:
+                routes.add((path, method.lower()))
+    documented = {(p, m) for p, ops in described.items() for m in ops if m != "parameters"}
+    assert routes == documented

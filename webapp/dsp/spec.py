@@ -105,7 +105,9 @@ class Mask:
         if spec.stopband_hz is not None:
             fs = float(spec.stopband_hz)
         elif spec.allow_transition_aliasing:
-            fs = low - fp
+            # never past the filter's own Nyquist (fs_in * up / 2): for a route between equal
+            # rates lower rate - passband lies above it
+            fs = min(low - fp, route.prototype_rate / 2.0)
         else:
             fs = nyq
         if fs <= fp:
@@ -115,6 +117,10 @@ class Mask:
             raise ParameterError(
                 f"stopband_hz must be at most lower rate - passband_hz = {low - fp:g} Hz, or "
                 f"aliases land in the passband; got {fs:g}", "stopband_hz")
+        if fs > route.prototype_rate / 2.0:
+            raise ParameterError(
+                f"stopband_hz must be at most half the filter's rate ({route.prototype_rate / 2:g}"
+                f" Hz for {route.fs_in} -> {route.fs_out} Hz), got {fs:g}", "stopband_hz")
         return cls(route.fs_in, route.fs_out, route.up, route.down, float(fp), float(fs),
                    float(spec.ripple_db), float(spec.attenuation_db))
 
