@@ -20,7 +20,8 @@ from webapp.dsp.errors import AudioFileError, ParameterError
 from webapp.dsp.loudness import integrated_loudness, true_peak
 from webapp.dsp.spec import Spec, preset
 from webapp.delivery import Delivery
-from webapp.pipeline import Cancelled, convert_file, output_name
+from webapp.jobs import convert_file, output_name
+from webapp.pipeline import Cancelled
 
 
 def sine(freq, rate, seconds, amp=0.5, channels=2):
@@ -113,7 +114,7 @@ def test_pipeline_output_does_not_depend_on_the_block_size(tmp_audio, tmp_path):
     outs = []
     for bs in (1000, 4096, 65536):
         p = tmp_path / f"o{bs}.wav"
-        convert_file(src, p, spec=Spec(attenuation_db=100.0), fs_out=48000, blocksize=bs,
+        convert_file(src, p, spec=Spec(attenuation_db=100.0), fs_out=48000, block_frames=bs,
                      delivery=Delivery(bits="64f"))
         outs.append(sf.read(p)[0])
     assert max(np.max(np.abs(o - outs[0])) for o in outs) <= 1e-12
@@ -128,7 +129,7 @@ def test_cancel_leaves_no_output_and_no_temporary_file(tmp_audio, tmp_path):
             stop.set()
 
     with pytest.raises(Cancelled):
-        convert_file(src, tmp_path / "out.wav", fs_out=48000, blocksize=4096, progress=progress,
+        convert_file(src, tmp_path / "out.wav", fs_out=48000, block_frames=4096, progress=progress,
                      cancel=stop)
     assert sorted(os.listdir(tmp_path)) == ["long.wav"]
 

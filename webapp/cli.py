@@ -127,37 +127,38 @@ def _delivery_from_args(args):
 
 
 def cmd_convert(args):
-    from . import partials, pipeline
+    from . import jobs, partials
     if args.recipe:
-        from . import sheet
-        recipe = sheet.load_recipe(args.recipe)
-        spec, fs_out, delivery = recipe.spec, recipe.fs_out, recipe.delivery
-        blocksize = recipe.block_frames
+        from .recipe import load_recipe
+        recipe = load_recipe(args.recipe)
+        # the source is checked before any work: nothing is written for a wrong source
+        job = jobs.prepare_rerun(recipe, args.input, args.output)
     else:
         if args.fs_out is None:
             from .dsp.errors import ParameterError
             raise ParameterError("convert needs --to HZ (or --recipe FILE)", "fs_out")
-        spec, fs_out, delivery = spec_from_args(args), args.fs_out, _delivery_from_args(args)
-        blocksize = args.block_frames
-    if args.recipe:
-        recipe.check_source(args.input)   # before any work: nothing is written for a wrong source
-    partials.sweep(os.path.dirname(os.path.abspath(args.output)))
+        job = jobs.prepare(args.input, args.output, fs_out=args.fs_out, spec=spec_from_args(args),
+                           delivery=_delivery_from_args(args), block_frames=args.block_frames)
+    partials.sweep(os.path.dirname(os.path.abspath(args.output)))   # a crashed run's leftovers
     bar = ProgressBar(not args.quiet and not args.json, os.path.basename(args.input))
-    result = pipeline.convert_file(args.input, args.output, spec=spec, fs_out=fs_out,
-                                   delivery=delivery, blocksize=blocksize, progress=bar)
-    if args.write_recipe or args.sheet:
+    if args.recipe:
+        check = jobs.rerun(recipe, args.input, args.output, progress=bar, job=job)
+        result = check.result
+    else:
+        result = jobs.run(job, progress=bar)
+    if args.write_recipe:
+        from .recipe import write_recipe
+        write_recipe(result, args.write_recipe)
+    if args.sheet:
         from . import sheet
-        if args.write_recipe:
-            sheet.write_recipe(result, args.write_recipe)
-        if args.sheet:
-            sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
-                              note=args.note)
+        sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
+                          note=args.note)
     for warning in result.warnings:
         sys.stderr.write(f"rateferry: warning: {warning}\n")
     figs = result.figures()
     if args.recipe:
-        # a re-run is only a reproduction when the bytes are the same as the recipe says
-        figs["reproduces_recipe"] = recipe.reproduces(result)
+        figs["reproduces_recipe"] = check.reproduces
+        figs["recipe_differences"] = check.figures()["differences"]
     if args.json:
         _print_json(figs)
     elif not args.quiet:
@@ -165,11 +166,13 @@ def cmd_convert(args):
               f"{result.output_subtype}, gain {result.gain_db:+.2f} dB ({result.gain_reason}), "
               f"true peak {figs['output']['true_peak_dbtp']} dBTP, "
               f"clipped samples {result.clipped_samples}, {result.seconds:.2f} s")
-        if args.recipe:
-            print("output is byte-identical to the recipe's (same sha256)"
-                  if figs["reproduces_recipe"] else
-                  f"output differs from the recipe's: sha256 {result.output_sha256}, recipe "
-                  f"{recipe.output_sha256}")
+        if args.recipe and check.reproduces:
+            print("output is byte-identical to the recipe's (same sha256), and every recorded "
+                  "figure was reproduced")
+    if args.recipe and not check.reproduces:
+        err = jobs.RecipeMismatch(check.differences)
+        sys.stderr.write(f"rateferry: error: {err.message}; the output was kept for inspection\n")
+        return jobs.EXIT_RECIPE_MISMATCH
     return 0
 
 
@@ -218,7 +221,7 @@ def cmd_clean(args):
 
 def build_parser():
     ap = OneLineParser(prog="rateferry",
-                                 description="Sample-rate conversion with a verified filter.")
+                       description="Sample-rate conversion with a verified filter.")
     ap.add_argument("--version", action="version", version=f"rateferry {__version__}")
     sub = ap.add_subparsers(dest="command", required=True)
 

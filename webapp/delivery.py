@@ -11,7 +11,7 @@ import numpy as np
 
 from .dsp.dither import DITHERS, WORD_LENGTHS, noise_transfer_taps
 from .dsp.errors import ParameterError
-from .dsp.numbers import finite_number
+from .dsp.numbers import finite_number, shown
 
 __all__ = ["Delivery", "DITHERS", "WORD_LENGTHS", "gain_for"]
 
@@ -83,6 +83,8 @@ class Delivery:
             values["bits"] = bits
         for name in ("ceiling_dbtp", "loudness_lufs"):
             v = values.get(name)
+            if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float))):
+                raise ParameterError(f"{name} must be a number or null, got {shown(v)}", name)
             if v is not None:
                 values[name] = finite_number(v, name)
         return cls(**values)

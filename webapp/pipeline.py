@@ -1,4 +1,4 @@
-"""The one conversion pipeline: the CLI, the web app and recipe re-runs all call it.
+"""The streaming execution of a prepared job (:mod:`webapp.jobs` prepares it).
 
 source file -> probe -> route and design (verified against the mask) -> streaming converter
 -> gain (headroom / loudness policy) -> word length and dither -> atomic output file,
@@ -9,7 +9,7 @@ at unity gain; conversion is linear, so the gain that satisfies both bounds foll
 the second pass writes the file. Memory stays flat: everything streams in blocks.
 """
 
-from dataclasses import dataclass, asdict, field, replace
+from dataclasses import dataclass, field
 import math
 import os
 import queue
@@ -21,18 +21,14 @@ from threadpoolctl import threadpool_limits
 
 from . import __version__
 from . import media, riff
-from .dsp.design import require_met
 from .dsp.dither import Quantizer
-from .delivery import DITHERS, Delivery, gain_for
+from .delivery import Delivery, gain_for
 from .dsp.errors import ParameterError, RateferryError
 from .dsp.loudness import LoudnessMeter, TruePeakMeter
-from .dsp.polyphase import make_converter, output_length
-from .dsp.rates import validate_rate
+from .dsp.polyphase import make_converter
 from .dsp.spec import Spec
-from .dsp.stages import choose_plan
 
-__all__ = ["Delivery", "Cancelled", "ConversionResult", "convert_file", "DITHERS", "Meters",
-           "output_name", "plan_for", "BLOCK_FRAMES"]
+__all__ = ["Cancelled", "ConversionResult", "execute", "Meters", "BLOCK_FRAMES"]
 
 BLOCK_FRAMES = 65536
 
@@ -55,7 +51,7 @@ class ConversionResult:
     seconds: float
     spec: Spec
     delivery: Delivery
-    design: object = field(repr=False)
+    plan: object = field(repr=False)
     source_probe: object = field(repr=False)
     output_format: str = ""
     output_subtype: str = ""
@@ -70,10 +66,11 @@ class ConversionResult:
     source_sha256: str = ""
     output_sha256: str = ""
     version: str = __version__
-    warnings: tuple = ()
+    recipe_check: dict | None = None    # a recipe re-run: reproduces, differences
+    warnings: tuple = ()                # e.g. a source shorter than its header declares
 
     def figures(self):
-        d = self.design.figures()
+        d = self.plan.figures()
         d.update(
             frames_in=self.frames_in, frames_out=self.frames_out, seconds=self.seconds,
             channels=self.channels, output_format=self.output_format,
@@ -85,26 +82,9 @@ class ConversionResult:
             source_sha256=self.source_sha256, output_sha256=self.output_sha256,
             version=self.version, warnings=list(self.warnings),
         )
+        if self.recipe_check is not None:
+            d["recipe_check"] = dict(self.recipe_check)
         return d
-
-
-def plan_for(spec, fs_in, fs_out):
-    """The verified design (or multistage plan) a conversion runs; raises when the mask fails."""
-    plan = choose_plan(spec, fs_in, validate_rate(fs_out, field="fs_out"))
-    if getattr(plan, "stages", None) is None:
-        require_met(plan)
-    elif not plan.meets_mask:
-        raise ParameterError("the multistage plan does not meet the mask", "stages")
-    return plan
-
-
-def output_name(stem, fs_out, bits, ext):
-    """A sensible download name: ``<stem>_48k_16bit.flac`` (``_44k1`` for 44100 Hz)."""
-    k = fs_out / 1000
-    rate = f"{int(k)}k" if fs_out % 1000 == 0 else f"{k:g}".replace(".", "k")
-    word = {"16": "16bit", "24": "24bit", "32f": "32float", "64f": "64float"}.get(bits or "", "")
-    parts = [stem, rate] + ([word] if word else [])
-    return "_".join(parts) + ext
 
 
 class Meters:
@@ -283,65 +263,29 @@ def _check_cancel(cancel):
         raise Cancelled("the conversion was cancelled; no output was written", "conversion")
 
 
-def convert_file(source, target, **options):
-    """Convert ``source`` to ``target``; see :func:`_convert_file` for the options.
+def execute(job, *, progress=None, cancel=None, tags_comment=True):
+    """Run a prepared job (see :func:`webapp.jobs.prepare`); returns a ConversionResult.
 
     The stages (reader, converter, meters, quantiser, writer) run on their own threads, so the
     BLAS library is held to one thread meanwhile: its own worker threads would only compete
     with them for the cores (measured: 14.1 s against 10.1 s for ten minutes of stereo).
-    """
-    with threadpool_limits(limits=1, user_api="blas"):
-        return _convert_file(source, target, **options)
 
-
-def _convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None,
-                  blocksize=BLOCK_FRAMES, progress=None, cancel=None, tags_comment=True):
-    """Convert ``source`` to ``target`` at ``fs_out`` Hz through the whole delivery chain.
-
-    Parameters
-    ----------
-    source, target : path
-    spec : Spec, optional (default Spec())
-    fs_out : int
-    delivery : Delivery, optional
-    plan : Design or Plan, optional
-        A design already made for this route (the web app reuses its cached design).
-    blocksize : int
-        Frames per block read; the output is bit-identical for a given blocksize and seed.
     progress : callable(fraction, frames_done, frames_total), optional
     cancel : threading.Event, optional
         When set, the conversion stops at the next block, leaving no output behind.
-
-    Returns
-    -------
-    ConversionResult
-
-    Raises
-    ------
-    ParameterError, AudioFileError, Cancelled
     """
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _execute(job, progress=progress, cancel=cancel, tags_comment=tags_comment)
+
+
+def _execute(job, *, progress, cancel, tags_comment):
     t0 = time.perf_counter()
-    spec = spec or Spec()
-    delivery = delivery or Delivery()
-    src = media.probe(source)
-    fs_in = src.rate_hz
-    fs_out = validate_rate(fs_out, field="fs_out")
+    src, source, target = job.probe, job.source, job.target
+    fs_in, fs_out, delivery, design = job.fs_in, job.fs_out, job.delivery, job.plan
+    out_plan, blocksize, passes = job.output, job.block_frames, job.passes
     media.refuse_same_file(source, target)
-    frames_out = output_length(src.frames, fs_out, fs_in) if fs_in != fs_out else src.frames
-    out_plan = media.output_plan(target, rate_hz=fs_out, channels=src.channels,
-                                 bits=delivery.bits, source_probe=src,
-                                 frames_estimate=frames_out)
-    pcm = out_plan.bits in ("16", "24")
-    if not pcm:
-        # float and lossy outputs are not quantised here: no dither applies (recorded as none)
-        delivery = replace(delivery, dither="none")
-    design = plan if plan is not None else plan_for(spec, fs_in, fs_out)
-    if (design.fs_in, design.fs_out) != (fs_in, fs_out):
-        raise ParameterError(f"the design converts {design.fs_in} -> {design.fs_out} Hz but the "
-                             f"source is {fs_in} Hz and the target {fs_out} Hz", "design")
-    dtype = getattr(design, "spec", spec).arithmetic
-    needs_first_pass = delivery.ceiling_dbtp is not None or delivery.loudness_lufs is not None
-    passes = 2 if needs_first_pass else 1
+    dtype = design.spec.arithmetic
+    needs_first_pass = passes == 2
     total_work = src.frames * passes
     done = 0
 
@@ -368,7 +312,7 @@ def _convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None
     gain = 10 ** (gain_db / 20.0)
 
     quant = None
-    if pcm:
+    if out_plan.bits in ("16", "24"):
         quant = Quantizer(bits=out_plan.bits, dither=delivery.dither, seed=delivery.dither_seed,
                           channels=src.channels, rate_hz=fs_out)
     scale = {"16": 2.0**15, "24": 2.0**31}.get(out_plan.bits)
@@ -418,8 +362,8 @@ def _convert_file(source, target, *, spec=None, fs_out, delivery=None, plan=None
     return ConversionResult(
         source_path=os.fspath(source), output_path=os.fspath(target), fs_in=fs_in,
         fs_out=fs_out, channels=src.channels, frames_in=src.frames, frames_out=conv.frames_out,
-        seconds=time.perf_counter() - t0, spec=getattr(design, "spec", spec),
-        delivery=delivery, design=design, source_probe=src, output_format=out_plan.format,
+        seconds=time.perf_counter() - t0, spec=design.spec,
+        delivery=delivery, plan=design, source_probe=src, output_format=out_plan.format,
         output_subtype=out_plan.subtype, bits=out_plan.bits, gain_db=gain_db,
         gain_reason=gain_reason, source_meters=source_meters.result(),
         output_meters=out_meters.result(),

@@ -15,7 +15,9 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from webapp import pipeline, sheet
+from webapp import jobs, sheet
+from webapp import recipe as recipe_module
+from webapp.delivery import Delivery
 from webapp.dsp.spec import Spec
 
 pytestmark = pytest.mark.browser
@@ -31,8 +33,8 @@ def _sheet(folder, fs_out, spec, **options):
     x = np.stack([0.4 * np.sin(2 * np.pi * 1000 * t), 0.2 * np.sin(2 * np.pi * 7000 * t)], 1)
     src = folder / "source.wav"
     sf.write(src, x, rate, subtype="PCM_16")
-    res = pipeline.convert_file(src, folder / f"out_{fs_out}.wav", spec=spec, fs_out=fs_out,
-                                delivery=pipeline.Delivery(bits="16"))
+    res = jobs.convert_file(src, folder / f"out_{fs_out}.wav", spec=spec, fs_out=fs_out,
+                                delivery=Delivery(bits="16"))
     return sheet.write_sheet(res, folder / f"sheet_{fs_out}.html", title="Review <copy>",
                              author="R. Mixer", note="Two tones.\nNothing else.", **options)
 
@@ -122,7 +124,7 @@ def test_save_recipe_button_downloads_the_embedded_recipe(opened, tmp_path):
         page.click("#rf-save-recipe")
     target = tmp_path / "r.json"
     info.value.save_as(target)
-    loaded = sheet.load_recipe(target)
+    loaded = recipe_module.load_recipe(target)
     embedded = page.evaluate("JSON.parse(document.getElementById('rf-recipe').textContent)")
     assert loaded.to_dict() == embedded
     assert info.value.suggested_filename.endswith(".recipe.json")

@@ -23,11 +23,15 @@ import pytest
 import soundfile as sf
 from scipy import signal, stats
 
-from webapp import __version__, pipeline, sheet
-from webapp.cli import jsonable, main
+from webapp import __version__, jobs, sheet
+from webapp import recipe as recipe_module
+from webapp.delivery import Delivery
+from webapp.cli import main
+from webapp.jsontools import jsonable
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.spec import Spec
-from webapp.sheet import load_recipe, recipe_from_result, sheet_html, write_recipe, write_sheet
+from webapp.recipe import load_recipe, recipe_from_result, write_recipe
+from webapp.sheet import sheet_html, write_sheet
 
 RATE_IN = 44100
 TONES_HZ = (1000.0, 6000.0)
@@ -130,8 +134,8 @@ def converted(tmp_path_factory):
                  "tpdf", "--seed", "7", "--ceiling", "-1", "--write-recipe", str(recipe),
                  "--sheet", str(html_path), "--title", "Episode 12", "--quiet"])
     assert code == 0
-    result = pipeline.convert_file(src, folder / "api_48k.wav", spec=Spec(), fs_out=48000,
-                                   delivery=pipeline.Delivery(bits="16", dither_seed=7,
+    result = jobs.convert_file(src, folder / "api_48k.wav", spec=Spec(), fs_out=48000,
+                                   delivery=Delivery(bits="16", dither_seed=7,
                                                               ceiling_dbtp=-1.0))
     return dict(folder=folder, src=src, out=out, recipe=recipe, sheet=html_path, result=result)
 
@@ -182,13 +186,13 @@ def test_recipe_with_a_different_source_gives_the_clear_error(converted, tmp_pat
 
 def test_recipe_re_run_through_the_pipeline_matches_and_reports_it(converted, tmp_path):
     r = load_recipe(converted["recipe"])
-    res = pipeline.convert_file(converted["src"], tmp_path / "p.wav", spec=r.spec,
-                                fs_out=r.fs_out, delivery=r.delivery, blocksize=r.block_frames)
+    res = jobs.convert_file(converted["src"], tmp_path / "p.wav", spec=r.spec,
+                                fs_out=r.fs_out, delivery=r.delivery, block_frames=r.block_frames)
     assert r.reproduces(res)
     assert res.output_sha256 == r.output_sha256 == _sha(tmp_path / "p.wav")
-    changed = pipeline.convert_file(converted["src"], tmp_path / "q.wav", spec=r.spec,
+    changed = jobs.convert_file(converted["src"], tmp_path / "q.wav", spec=r.spec,
                                     fs_out=r.fs_out,
-                                    delivery=pipeline.Delivery(bits="16", dither_seed=8,
+                                    delivery=Delivery(bits="16", dither_seed=8,
                                                                ceiling_dbtp=-1.0))
     assert not r.reproduces(changed)   # another dither seed: other bytes
 
@@ -228,10 +232,10 @@ def test_recipe_holds_everything_needed_and_base_names_only(converted):
     assert data["spec"] == Spec().to_dict()
     assert data["delivery"] == {"bits": "16", "dither": "tpdf", "dither_seed": 7,
                                 "ceiling_dbtp": -1.0, "loudness_lufs": None}
-    assert data["block_frames"] == pipeline.BLOCK_FRAMES == 65536
-    assert data["design"]["numtaps"] == res.design.numtaps
-    assert data["design"]["method"] == res.design.method
-    assert data["design"]["measured"] == jsonable(res.design.measured.to_dict())
+    assert data["block_frames"] == jobs.BLOCK_FRAMES == 65536
+    assert data["design"]["numtaps"] == res.plan.numtaps
+    assert data["design"]["method"] == res.plan.method
+    assert data["design"]["measured"] == jsonable(res.plan.measured.to_dict())
     assert "design_ms" not in data["design"]
     assert data["source"]["name"] == "interview.wav"
     assert data["source"]["frames"] == int(RATE_IN * 1.5) and data["source"]["channels"] == 2
@@ -280,7 +284,7 @@ def test_recorded_names_can_be_given_and_keep_only_the_base_name(converted, tmp_
 
 @pytest.fixture(scope="module")
 def schema():
-    return json.load(open(sheet.SCHEMA_PATH, encoding="utf-8"))
+    return json.load(open(recipe_module.SCHEMA_PATH, encoding="utf-8"))
 
 
 def test_schema_is_valid_draft_2020_12_and_accepts_a_written_recipe(converted, schema):
@@ -297,8 +301,8 @@ def test_schema_pins_the_spec_and_delivery_fields(schema):
     assert set(schema["properties"]["spec"]["required"]) == set(spec_props)
     dl = schema["properties"]["delivery"]
     assert set(dl["properties"]) == set(dl["required"]) == {f.name for f in
-                                                            fields(pipeline.Delivery)}
-    assert schema["properties"]["version"]["const"] == sheet.RECIPE_VERSION == 1
+                                                            fields(Delivery)}
+    assert schema["properties"]["version"]["const"] == recipe_module.RECIPE_VERSION == 1
 
 
 def test_every_schema_property_is_documented(schema):
@@ -406,7 +410,7 @@ def test_unreadable_recipes_get_a_clear_error(tmp_path):
         load_recipe(tmp_path / "missing.json")
     with pytest.raises(ParameterError, match="NaN is not a JSON number"):
         load_recipe(b'{"schema": "rateferry-recipe", "version": NaN}')
-    (tmp_path / "big.json").write_bytes(b" " * (sheet.RECIPE_MAX_BYTES + 1))
+    (tmp_path / "big.json").write_bytes(b" " * (recipe_module.RECIPE_MAX_BYTES + 1))
     with pytest.raises(ParameterError, match="larger than"):
         load_recipe(tmp_path / "big.json")
 
@@ -535,7 +539,7 @@ def test_user_text_cannot_inject_html(converted, tmp_path):
 def test_hostile_file_names_are_escaped_in_markup_and_json(tmp_path):
     name = 'a<b>&"c\'<script>.wav'
     src = _source(tmp_path / name, seconds=0.5)
-    res = pipeline.convert_file(src, tmp_path / "<b>x.flac", fs_out=48000)
+    res = jobs.convert_file(src, tmp_path / "<b>x.flac", fs_out=48000)
     text = sheet_html(res, audit=None)
     doc = _parse(text)
     assert doc.errors == [] and "b" not in doc.tags
@@ -582,7 +586,7 @@ def test_blind_results_are_shown_with_the_binomial_p_value(page, converted):
 def test_plotted_response_is_the_filter_as_scipy_computes_it(converted, page):
     _, doc = page
     plots = json.loads(doc.scripts["rf-plots"])
-    design = converted["result"].design
+    design = converted["result"].plan.design
     taps = design.taps / design.phases
     curve = plots["response"]["traces"][0]
     f = np.array(curve["x"])
@@ -607,7 +611,7 @@ def test_plotted_response_is_the_filter_as_scipy_computes_it(converted, page):
 def test_impulse_plot_marks_the_pre_ringing(converted, page):
     _, doc = page
     plot = json.loads(doc.scripts["rf-plots"])["impulse"]
-    design = converted["result"].design
+    design = converted["result"].plan.design
     rect = [s for s in plot["layout"]["shapes"] if s["type"] == "rect"]
     assert len(rect) == 1 and rect[0]["x0"] == -design.prering_ms and rect[0]["x1"] == 0
     t = np.array(plot["traces"][0]["x"])
@@ -660,7 +664,7 @@ def test_audit_can_be_skipped_or_given(converted):
 
 def test_sheet_runs_the_real_audit_when_available(converted):
     import webapp.dsp.audit as audit_mod
-    design = converted["result"].design
+    design = converted["result"].plan.design
     text = sheet_html(converted["result"])           # audit="auto"
     doc = _parse(text)
     assert doc.errors == []
@@ -693,3 +697,19 @@ def test_sheet_runs_the_real_audit_when_available(converted):
     np.testing.assert_allclose(np.array(shown["y"], dtype=float), ref_v[pos], rtol=1e-5)
     assert max(shown["y"]) == pytest.approx(np.nanmax(ref_v), abs=1e-5)
     assert len(text.encode()) < sheet.SHEET_BUDGET_BYTES
+
+
+def test_the_sheet_and_the_page_plot_the_same_passband_data(converted, page):
+    """One figure builder (webapp.figures.passband_curve) behind both: the page's JSON
+    (webapp.figures.design_view, served by POST /api/designs) and the sheet's plot agree point
+    for point, each within its own rounding (4 decimals on the page, 7 significant digits in
+    the sheet)."""
+    from webapp.figures import design_view
+    _, doc = page
+    sheet_trace = json.loads(doc.scripts["rf-plots"])["passband"]["traces"][0]
+    page_view = design_view(converted["result"].plan)["passband"]
+    fs, ls = np.asarray(sheet_trace["x"]), np.asarray(sheet_trace["y"], dtype=float)
+    fp, lp = np.asarray(page_view["freqs_hz"]), np.asarray(page_view["magnitude_db"])
+    assert fs.size == fp.size > 100
+    np.testing.assert_allclose(fs, fp, rtol=1e-6, atol=1e-4)
+    np.testing.assert_allclose(ls, lp, rtol=1e-6, atol=1e-6)

@@ -267,11 +267,11 @@ def test_blind_trial_answers_must_agree_with_the_count(client, headers, finished
 
 
 def test_recipe_download_reproduces_and_uploads_back(client, headers, finished):
-    from webapp import sheet
+    from webapp import recipe as recipe_module
     r = client.get(finished["urls"]["recipe"])
     assert r.status_code == 200
-    assert _disposition(r) == ("attachment", "ident_44k1_16bit_recipe.json")
-    recipe = sheet.load_recipe(r.data)
+    assert _disposition(r) == ("attachment", "ident_44k1_16bit.recipe.json")
+    recipe = recipe_module.load_recipe(r.data)
     assert recipe.fs_out == 44100 and recipe.spec == preset("quick_preview")
     assert recipe.output_sha256 == finished["figures"]["output_sha256"]
     # the names the user knows, not the generated storage names

@@ -316,7 +316,7 @@ def test_a_full_disk_is_named_in_the_conversion_error(tmp_path, tone):
     """A real full device: a 256 KiB tmpfs (needs the right to mount; skipped without it)."""
     import subprocess
     from webapp.dsp.errors import AudioFileError
-    from webapp.pipeline import convert_file
+    from webapp.jobs import convert_file
     small = tmp_path / "small"
     small.mkdir()
     if subprocess.run(["mount", "-t", "tmpfs", "-o", "size=256k", "tmpfs", str(small)],

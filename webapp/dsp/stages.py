@@ -16,23 +16,25 @@ their Multirate Digital Signal Processing, 1983, ch. 5):
 """
 
 from dataclasses import dataclass, field, replace
-import itertools
 import math
 
 import numpy as np
 
-from .design import design, kaiser_numtaps, _meets, Measured
+from .design import Design, RouteOfMask, design, kaiser_numtaps, require_met, _meets, Measured
 from .errors import ParameterError
 from .rates import route as make_route
 
-__all__ = ["Plan", "plan_options", "choose_plan", "cascade_response"]
+__all__ = ["Plan", "as_plan", "plan_options", "choose_plan", "verified_plan", "cascade_response"]
 
 MAX_CANDIDATES = 6
 
 
 @dataclass(frozen=True, eq=False)
-class Plan:
-    """A cascade of single-stage designs that together convert fs_in to fs_out."""
+class Plan(RouteOfMask):
+    """What a conversion runs: one or more single-stage designs that together convert fs_in to
+    fs_out. A single-stage design is a one-stage plan (:meth:`single`); every caller holds a
+    Plan, whatever the number of stages.
+    """
 
     spec: object
     mask: object
@@ -47,27 +49,44 @@ class Plan:
     path: str = "multistage"
     method: str = "multistage"
 
-    @property
-    def fs_in(self):
-        return self.mask.fs_in
+    @classmethod
+    def single(cls, design):
+        """The one-stage plan of a single-stage :class:`~webapp.dsp.design.Design`."""
+        return cls(spec=design.spec, mask=design.mask, stages=(design,),
+                   rates=(design.fs_in, design.fs_out), measured=design.measured,
+                   meets_mask=design.meets_mask,
+                   macs_per_output_sample=design.macs_per_output_sample,
+                   mmac_per_second=design.mmac_per_second, latency_ms=design.latency_ms,
+                   numtaps=design.numtaps, path=design.path, method=design.method)
 
     @property
-    def fs_out(self):
-        return self.mask.fs_out
+    def multistage(self):
+        return len(self.stages) > 1
 
     @property
-    def up(self):
-        return self.mask.up
+    def prering_ms(self):
+        """The single stage's pre-ringing; None for a cascade (each stage has its own)."""
+        return None if self.multistage else self.stages[0].prering_ms
 
     @property
-    def down(self):
-        return self.mask.down
+    def phase(self):
+        return self.spec.phase
+
+    @property
+    def design(self):
+        """The single stage's design (for plots of one filter); the first stage otherwise."""
+        return self.stages[0]
 
     @property
     def label(self):
+        if not self.multistage:
+            return "single"
         return " then ".join(f"{s.up}/{s.down}" for s in self.stages)
 
     def figures(self):
+        """Plain figures: a one-stage plan reports its design's figures unchanged."""
+        if not self.multistage:
+            return self.stages[0].figures()
         return dict(
             path=self.path, method=self.method, label=self.label,
             fs_in=self.fs_in, fs_out=self.fs_out, up=self.up, down=self.down,
@@ -77,6 +96,24 @@ class Plan:
             meets_mask=self.meets_mask, measured=self.measured.to_dict(),
             stages=[s.figures() for s in self.stages],
         )
+
+    def require_met(self):
+        """This plan, or a ParameterError naming what misses the mask."""
+        if not self.multistage:
+            require_met(self.stages[0])
+        elif not self.meets_mask:
+            raise ParameterError("the multistage plan does not meet the mask", "stages")
+        return self
+
+
+def as_plan(design_or_plan):
+    """A Plan for a Plan or a single-stage Design."""
+    if isinstance(design_or_plan, Plan):
+        return design_or_plan
+    if isinstance(design_or_plan, Design):
+        return Plan.single(design_or_plan)
+    raise ParameterError(f"expected a Design or a Plan, got {type(design_or_plan).__name__}",
+                         "design")
 
 
 def _factorings(n, parts):
@@ -212,13 +249,22 @@ def plan_options(spec, fs_in, fs_out, *, max_stages=3, candidates=MAX_CANDIDATES
     return single, plans
 
 
-def choose_plan(spec, fs_in, fs_out):
-    """What a conversion runs: the single-stage design, or with ``spec.stages == "auto"`` the
-    cheapest verified plan when it saves at least 20 % of the multiply-adds."""
+def choose_plan(spec, fs_in, fs_out, *, single=None):
+    """The Plan a conversion runs: the single stage, or with ``spec.stages == "auto"`` the
+    cheapest verified multistage plan when it saves at least 20 % of the multiply-adds.
+    ``single`` may pass the single-stage design already made (a cache)."""
+    if single is None:
+        single = design(spec, fs_in, fs_out)
     if spec.stages != "auto":
-        return design(spec, fs_in, fs_out)
-    single, plans = plan_options(spec, fs_in, fs_out)
+        return Plan.single(single)
+    single, plans = plan_options(spec, fs_in, fs_out, single=single)
     good = [p for p in plans if p.meets_mask]
     if good and good[0].macs_per_output_sample < 0.8 * single.macs_per_output_sample:
         return good[0]
-    return single
+    return Plan.single(single)
+
+
+def verified_plan(spec, fs_in, fs_out, *, single=None):
+    """:func:`choose_plan`, refused with a ParameterError when it does not meet the mask.
+    The one place that decides whether a conversion may run."""
+    return choose_plan(spec, fs_in, fs_out, single=single).require_met()

@@ -1,7 +1,6 @@
 """The JSON API (see API.md). Views parse, call the core or the store, and serialise."""
 
 import json
-import math
 import os
 import re
 import secrets
@@ -16,9 +15,11 @@ from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
 from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
 from webapp.store import ACTIVE_STATUSES, FINAL_STATUSES, new_id
 from webapp.delivery import DITHERS, Delivery
-from webapp.pipeline import convert_file, output_name
+from webapp import jobs
 
-from . import analysis
+from webapp import figures, listening
+from webapp.designs import PLAYBACK_PRESET, design_key
+from webapp.recipe import load_recipe, recipe_file_name
 from .db import get_db, state
 from .errors import ApiError
 from .library import measure, probe_figures
@@ -139,8 +140,8 @@ def options():
         upload_extensions=sorted(UPLOAD_EXTENSIONS),
         max_upload_bytes=current_app.config["MAX_CONTENT_LENGTH"],
         excerpt_max_s=current_app.config["EXCERPT_MAX_S"],
-        rendition_min_s=analysis.RENDITION_MIN_S,
-        playback_preset=analysis.PLAYBACK_PRESET,
+        rendition_min_s=listening.RENDITION_MIN_S,
+        playback_preset=PLAYBACK_PRESET,
     ))
 
 
@@ -247,7 +248,7 @@ def delete_recording(recording_id):
 # designs, audits, spectra
 
 def _store_design(spec, fs_in, fs_out, figures):
-    return get_db().put_design(key=analysis.design_key(spec, fs_in, fs_out), fs_in=fs_in,
+    return get_db().put_design(key=design_key(spec, fs_in, fs_out), fs_in=fs_in,
                                fs_out=fs_out, spec=spec.to_dict(), figures=jsonable(figures))
 
 
@@ -325,10 +326,7 @@ def create_audit():
     spec, fs_in, fs_out, design_id = spec_input(data, fs_in=fs_in)
     dither = choice(data, "dither", DITHERS, default="none")
     seed = integer(data, "seed", default=0, low=0, high=2**63 - 1)
-    try:
-        from webapp.dsp.audit import audit
-    except ImportError:
-        raise ApiError(503, "the audit module is not installed yet", "audit") from None
+    from webapp.dsp.audit import audit
     cache = state().cache
     plan = cache.route_plan(spec, fs_in, fs_out)
     if design_id is None:
@@ -356,7 +354,7 @@ def create_spectra():
     info = media.probe(rec["path"])
     view, cached = cache.memo(
         "spectra", (rec["id"], spec, fs_in, fs_out, start_s, length_s, log_axis),
-        lambda: analysis.spectra_view(rec["path"], info, plan, start_s=start_s,
+        lambda: figures.spectra_view(rec["path"], info, plan, start_s=start_s,
                                       length_s=length_s, log_axis=log_axis, max_length_s=max_s))
     body = dict(view, design_id=design_id, recording_id=rec["id"],
                 meets_mask=bool(plan.meets_mask), cached=cached)
@@ -384,6 +382,20 @@ def _public_conversion(conv, *, figures=True):
     return out
 
 
+def _recipe_job(data, rec, target_for):
+    """(job, design inputs) of a recipe re-run: the recipe's spec, rate, delivery, block size
+    and output format; the recording must be the recipe's source (checked before any work)."""
+    recipe = load_recipe(data["recipe"])
+    ext = os.path.splitext(recipe.data["output"]["name"])[1].lower()
+    if ext not in OUTPUT_FORMAT_EXTENSIONS.values():
+        raise ParameterError(f"recipe output {recipe.data['output']['name']!r} is not a format "
+                             "the page writes", "recipe")
+    fmt = next(k for k, v in OUTPUT_FORMAT_EXTENSIONS.items() if v == ext)
+    plan = state().cache.conversion_plan(recipe.spec, recipe.fs_in, recipe.fs_out)
+    job = jobs.prepare_rerun(recipe, rec["path"], target_for(ext), plan=plan)
+    return recipe, job, fmt
+
+
 @bp.post("/conversions")
 def create_conversion():
     data = json_body()
@@ -391,33 +403,33 @@ def create_conversion():
     if rec.get("analysis") == "failed":
         err = rec.get("analysis_error") or {}
         raise ParameterError(err.get("message", "the recording can't be read"), "recording_id")
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
-    fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
-    ext = OUTPUT_FORMAT_EXTENSIONS[fmt]
-    delivery = Delivery.from_dict(data.get("delivery"))
     st = state()
-    plan = st.cache.conversion_plan(spec, fs_in, fs_out)
-    if design_id is None:
-        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
-    info = media.probe(rec["path"])
     cid = new_id()
-    target = st.store.output_path(cid, ext)
-    frames_out = -(-info.frames * plan.up // plan.down)
-    out_plan = media.output_plan(target, rate_hz=fs_out, channels=info.channels,
-                                 bits=delivery.bits, source_probe=info,
-                                 frames_estimate=frames_out)
-    passes = 2 if (delivery.ceiling_dbtp is not None or delivery.loudness_lufs is not None) else 1
-    download = output_name(_stem(rec["name"]), fs_out, out_plan.bits, ext)
-    db = get_db()
-    conv = db.add_conversion(conversion_id=cid, recording_id=rec["id"], design_id=design_id,
-                             fs_in=fs_in, fs_out=fs_out, format=fmt, spec=spec.to_dict(),
-                             delivery=delivery.to_dict(), output_path=target,
-                             download_name=download, frames_total=info.frames * passes)
-    source = rec["path"]
+    recipe = None
+    if data.get("recipe") is not None:
+        recipe, job, fmt = _recipe_job(data, rec, lambda ext: st.store.output_path(cid, ext))
+        spec, delivery = recipe.spec, recipe.delivery
+        design_id = _store_design(spec, job.fs_in, job.fs_out, job.plan.figures())
+    else:
+        spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
+        fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
+        delivery = Delivery.from_dict(data.get("delivery"))
+        plan = st.cache.conversion_plan(spec, fs_in, fs_out)
+        if design_id is None:
+            design_id = _store_design(spec, fs_in, fs_out, plan.figures())
+        job = jobs.prepare(rec["path"], st.store.output_path(cid, OUTPUT_FORMAT_EXTENSIONS[fmt]),
+                           fs_out=fs_out, spec=spec, delivery=delivery, plan=plan)
+    conv = get_db().add_conversion(
+        conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=job.fs_in,
+        fs_out=job.fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
+        output_path=job.target, download_name=job.download_name(_stem(rec["name"])),
+        frames_total=job.frames_total)
 
     def run(progress, cancel):
-        return convert_file(source, target, spec=spec, fs_out=fs_out, delivery=delivery,
-                            plan=plan, progress=progress, cancel=cancel)
+        if recipe is not None:
+            return jobs.rerun(recipe, job.source, job.target, progress=progress, cancel=cancel,
+                              job=job).result
+        return jobs.run(job, progress=progress, cancel=cancel)
 
     st.pool.submit(cid, run)
     return _json(_public_conversion(conv), 202)
@@ -523,7 +535,7 @@ def _result_for(conv):
         source_path=rec["path"], output_path=conv["output_path"], fs_in=conv["fs_in"],
         fs_out=conv["fs_out"], channels=f["channels"], frames_in=f["frames_in"],
         frames_out=f["frames_out"], seconds=f["seconds"], spec=spec,
-        delivery=Delivery(**f["delivery"]), design=plan, source_probe=media.probe(rec["path"]),
+        delivery=Delivery(**f["delivery"]), plan=plan, source_probe=media.probe(rec["path"]),
         output_format=f["output_format"], output_subtype=f["output_subtype"], bits=f["bits"],
         gain_db=f["gain_db"], gain_reason=f["gain_reason"], source_meters=f["source"],
         output_meters=output_meters, clipped_samples=f["clipped_samples"], passes=f["passes"],
@@ -542,7 +554,7 @@ def _blind_summary(conversion_id):
         return None
     n = sum(t["trials"] for t in trials)
     k = sum(t["correct"] for t in trials)
-    return dict(trials=n, correct=k, p_value=_binomial_tail(k, n), sessions=len(trials))
+    return dict(trials=n, correct=k, p_value=listening.binomial_tail(k, n), sessions=len(trials))
 
 
 def _attachment(body, name, mimetype):
@@ -576,23 +588,17 @@ def conversion_recipe(conversion_id):
     conv = _done_or_409(conversion_or_404(conversion_id))
     path = conv["recipe_path"]
     if not path or not os.path.isfile(path):
-        from webapp import sheet
+        from webapp.recipe import write_recipe
         path = os.path.join(state().store.outputs, f"{conv['id']}_recipe.json")
-        sheet.write_recipe(_result_for(conv), path, **_user_names(conv))
+        write_recipe(_result_for(conv), path, **_user_names(conv))
     with open(path, "rb") as f:
         body = f.read()
-    name = os.path.splitext(conv["download_name"])[0] + "_recipe.json"
+    name = recipe_file_name(conv["download_name"])
     return _attachment(body, name, "application/json")
 
 
 # ---------------------------------------------------------------------------------------------
 # blind trials
-
-def _binomial_tail(correct, trials):
-    """P(at least ``correct`` right of ``trials`` by guessing, p = 1/2): the one-sided
-    binomial tail, summed exactly."""
-    return math.fsum(math.comb(trials, k) for k in range(correct, trials + 1)) / 2.0 ** trials
-
 
 @bp.post("/conversions/<conversion_id>/blind_trials")
 def add_blind_trials(conversion_id):
@@ -617,7 +623,7 @@ def add_blind_trials(conversion_id):
     if not isinstance(note, str) or len(note) > 2000:
         raise ParameterError("note must be text of at most 2000 characters", "note")
     row = get_db().add_blind_trial(conversion_id=conv["id"], trials=trials, correct=correct,
-                                   p_value=_binomial_tail(correct, trials),
+                                   p_value=listening.binomial_tail(correct, trials),
                                    answers=[dict(x=a["x"], answer=a["answer"]) for a in answers],
                                    note=note)
     return _json(row, 201)
@@ -639,8 +645,7 @@ def upload_recipe():
         body = _file_field().stream.read(4 << 20)
     finally:
         discard_incoming(request)
-    from webapp import sheet
-    recipe = sheet.load_recipe(body)
+    recipe = load_recipe(body)
     return _json(dict(spec=recipe.spec.to_dict(), fs_in=recipe.fs_in, fs_out=recipe.fs_out,
                       delivery=recipe.delivery.to_dict(), block_frames=recipe.block_frames,
                       source_name=recipe.source_name, source_sha256=recipe.source_sha256,
@@ -656,7 +661,7 @@ def create_renditions():
     st = state()
     max_s = current_app.config["EXCERPT_MAX_S"]
     start_s = number(data, "start_s", default=0.0, low=0.0, unit="s")
-    length_s = number(data, "length_s", default=10.0, low=analysis.RENDITION_MIN_S, high=max_s,
+    length_s = number(data, "length_s", default=10.0, low=listening.RENDITION_MIN_S, high=max_s,
                       unit="s")
     rate_hz = rate(data, "rate_hz")
     sample_format = choice(data, "sample_format", ("float32", "pcm24"), default="float32")
@@ -673,7 +678,7 @@ def create_renditions():
         spec, fs_in, fs_out, _ = spec_input(data, fs_in=rec["rate_hz"])
         converted = dict(plan=st.cache.conversion_plan(spec, fs_in, fs_out))
     rid = new_id()
-    figures, paths = analysis.make_renditions(
+    figures, paths = listening.make_renditions(
         source_path=rec["path"], probe=media.probe(rec["path"]), converted=converted,
         start_s=start_s, length_s=length_s, rate_hz=rate_hz, cache=st.cache,
         folder=st.store.renditions, rendition_id=rid, sample_format=sample_format,
