@@ -189,7 +189,7 @@ def test_convert_progress_bar_goes_to_stderr_and_quiet_turns_it_off(capsys, tmp_
 @pytest.mark.parametrize("case, rule", [
     ("unreadable", "in.wav"),
     ("unknown_format", "output file type must be one of"),
-    ("zero_rate", "fs_out must be an integer from 1000"),
+    ("zero_rate", "--to must be an integer from 1000"),
     ("nan", "non-finite sample (nan) at frame 100"),
     ("empty", "empty.wav"),
     ("same_path", "output must not be the source file"),

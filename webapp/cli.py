@@ -14,17 +14,22 @@ from . import __version__
 from .dsp.dither import DITHERS, WORD_LENGTHS
 from .dsp.errors import RateferryError
 from .dsp.spec import PRESETS, DEFAULT_PRESET, preset, spec_from_dict
+from .cli_args import OneLineParser, number_arg, rate_arg, whole_arg
 from .jsontools import jsonable
 
 EXIT_BAD_INPUT = 2
 
 SPEC_OPTIONS = [
     # flag, spec field, type, help
-    ("--passband", "passband_hz", float, "passband edge in Hz (default: a fraction of the lower Nyquist)"),
-    ("--passband-fraction", "passband_fraction", float, "passband edge as a fraction of the lower Nyquist"),
-    ("--stopband", "stopband_hz", float, "stopband edge in Hz (default: the lower Nyquist)"),
-    ("--ripple", "ripple_db", float, "largest passband deviation, +- dB"),
-    ("--attenuation", "attenuation_db", float, "smallest stopband rejection, dB"),
+    ("--passband", "passband_hz", number_arg("--passband", unit="Hz"),
+     "passband edge in Hz (default: a fraction of the lower Nyquist)"),
+    ("--passband-fraction", "passband_fraction", number_arg("--passband-fraction"),
+     "passband edge as a fraction of the lower Nyquist"),
+    ("--stopband", "stopband_hz", number_arg("--stopband", unit="Hz"),
+     "stopband edge in Hz (default: the lower Nyquist)"),
+    ("--ripple", "ripple_db", number_arg("--ripple", unit="dB"), "largest passband deviation, +- dB"),
+    ("--attenuation", "attenuation_db", number_arg("--attenuation", unit="dB"),
+     "smallest stopband rejection, dB"),
     ("--phase", "phase", str, "linear | minimum"),
     ("--method", "method", str, "auto | kaiser | equiripple | least-squares"),
     ("--arithmetic", "arithmetic", str, "float32 | float64"),
@@ -121,12 +126,16 @@ def _add_delivery_options(p):
                    help="output word length (default: like the source)")
     p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
                    help="dither for 16/24-bit outputs (default tpdf)")
-    p.add_argument("--seed", type=int, default=0, help="dither seed (default 0)")
-    p.add_argument("--ceiling", type=float, default=None,
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0,
+                   help="dither seed (default 0)")
+    p.add_argument("--ceiling", type=number_arg("--ceiling", low=-60.0, high=0.0, unit="dBTP"),
+                   default=None,
                    help="true-peak ceiling in dBTP (gain applied to stay under it)")
-    p.add_argument("--loudness", type=float, default=None,
+    p.add_argument("--loudness", type=number_arg("--loudness", low=-70.0, high=0.0, unit="LUFS"),
+                   default=None,
                    help="integrated loudness target in LUFS")
-    p.add_argument("--block-frames", type=int, default=65536, help="frames per block read")
+    p.add_argument("--block-frames", type=whole_arg("--block-frames", low=1, high=2**24),
+                   default=65536, help="frames per block read")
 
 
 def _delivery_from_args(args):
@@ -136,7 +145,7 @@ def _delivery_from_args(args):
 
 
 def cmd_convert(args):
-    from . import jobs
+    from . import jobs, partials
     if args.recipe:
         from .recipe import load_recipe
         recipe = load_recipe(args.recipe)
@@ -148,6 +157,7 @@ def cmd_convert(args):
             raise ParameterError("convert needs --to HZ (or --recipe FILE)", "fs_out")
         job = jobs.prepare(args.input, args.output, fs_out=args.fs_out, spec=spec_from_args(args),
                            delivery=_delivery_from_args(args), block_frames=args.block_frames)
+    partials.sweep(os.path.dirname(os.path.abspath(args.output)))   # a crashed run's leftovers
     bar = ProgressBar(not args.quiet and not args.json, os.path.basename(args.input))
     if args.recipe:
         check = jobs.rerun(recipe, args.input, args.output, progress=bar, job=job)
@@ -161,6 +171,8 @@ def cmd_convert(args):
         from . import sheet
         sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
                           note=args.note)
+    for warning in result.warnings:
+        sys.stderr.write(f"rateferry: warning: {warning}\n")
     figs = result.figures()
     if args.recipe:
         figs["reproduces_recipe"] = check.reproduces
@@ -260,21 +272,23 @@ def cmd_clean(args):
 
 
 def build_parser():
-    ap = argparse.ArgumentParser(prog="rateferry",
-                                 description="Sample-rate conversion with a verified filter.")
+    ap = OneLineParser(prog="rateferry",
+                       description="Sample-rate conversion with a verified filter.")
     ap.add_argument("--version", action="version", version=f"rateferry {__version__}")
     sub = ap.add_subparsers(dest="command", required=True)
 
     p = sub.add_parser("design", help="design and measure the filter for a route")
-    p.add_argument("--from", dest="fs_in", type=int, required=True, help="source rate, Hz")
-    p.add_argument("--to", dest="fs_out", type=int, required=True, help="target rate, Hz")
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True,
+                   help="source rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True,
+                   help="target rate, Hz")
     _add_spec_options(p)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_design)
 
     p = sub.add_parser("plans", help="multistage plans against the single stage")
-    p.add_argument("--from", dest="fs_in", type=int, required=True)
-    p.add_argument("--to", dest="fs_out", type=int, required=True)
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True)
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True)
     _add_spec_options(p)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_plans)
@@ -282,7 +296,7 @@ def build_parser():
     p = sub.add_parser("convert", help="convert a file")
     p.add_argument("input")
     p.add_argument("output")
-    p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), help="target rate, Hz")
     _add_spec_options(p)
     _add_delivery_options(p)
     p.add_argument("--recipe", help="re-run a recipe (JSON); spec and delivery come from it")
@@ -298,17 +312,17 @@ def build_parser():
     _add_batch_parser(sub)
 
     p = sub.add_parser("audit", help="measure the converter on standard test signals")
-    p.add_argument("--from", dest="fs_in", type=int, required=True)
-    p.add_argument("--to", dest="fs_out", type=int, required=True)
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True)
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True)
     _add_spec_options(p)
     p.add_argument("--dither", choices=list(DITHERS), default="none")
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_audit)
 
     p = sub.add_parser("serve", help="run the local web app")
     p.add_argument("--host", default="127.0.0.1")
-    p.add_argument("--port", type=int, default=8765)
+    p.add_argument("--port", type=whole_arg("--port", low=1, high=65535), default=8765)
     p.add_argument("--no-browser", action="store_true")
     p.add_argument("--debug", action="store_true", help="Flask's development server")
     p.add_argument("--instance", default=None, help="instance folder (data, database)")
@@ -316,7 +330,8 @@ def build_parser():
 
     p = sub.add_parser("clean", help="remove old uploads and outputs from the instance folder")
     p.add_argument("--instance", default=None)
-    p.add_argument("--days", type=float, default=7.0)
+    p.add_argument("--days", type=number_arg("--days", low=0.0, high=36500.0, unit="days"),
+                   default=7.0)
     p.set_defaults(func=cmd_clean)
     return ap
 
@@ -336,7 +351,7 @@ def _add_batch_parser(sub):
     p.add_argument("inputs", nargs="+", metavar="INPUT",
                    help="audio files, folders (searched recursively) or manifests (.csv, .jsonl)")
     p.add_argument("--out", required=True, help="output folder (holds the ledger and reports)")
-    p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), help="target rate, Hz")
     _add_spec_options(p)
     _add_delivery_options(p)
     p.add_argument("--recipe", help="apply a recipe (JSON) to every file: a template, or an "
@@ -348,7 +363,7 @@ def _add_batch_parser(sub):
     p.add_argument("--scheduler", metavar="ADDRESS", default=None,
                    help="run on this Dask scheduler (default: $RATEFERRY_SCHEDULER, else a "
                         "local cluster)")
-    p.add_argument("--workers", type=int, default=None,
+    p.add_argument("--workers", type=whole_arg("--workers", low=1, high=4096), default=None,
                    help="worker processes of the local cluster (default: one per core)")
     p.add_argument("--replace", action="store_true",
                    help="replace outputs that this batch did not make")
@@ -360,7 +375,12 @@ def _add_batch_parser(sub):
 
 def main(argv=None):
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:   # a bad option (one line already written), --help, --version
+        return exc.code
+    from . import partials
+    partials.sweep_remembered()   # partial files a crashed (kill -9) run left behind
     try:
         return args.func(args)
     except RateferryError as exc:

@@ -13,6 +13,7 @@ import numpy as np
 from .dsp.channels import CHANNEL_LAYOUTS, MONO_LAWS
 from .dsp.dither import DITHERS, WORD_LENGTHS, noise_transfer_taps
 from .dsp.errors import ParameterError
+from .dsp.numbers import finite_number, shown
 
 __all__ = ["Delivery", "DITHERS", "WORD_LENGTHS", "CHANNEL_LAYOUTS", "MONO_LAWS", "MP3_MODES",
            "MP3_KBPS_RANGE", "gain_for"]
@@ -131,9 +132,9 @@ class Delivery:
         for name in ("ceiling_dbtp", "loudness_lufs", "loudness_tolerance_lu", "max_limiting_db"):
             v = values.get(name)
             if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float))):
-                raise ParameterError(f"{name} must be a number or null, got {v!r}", name)
+                raise ParameterError(f"{name} must be a number or null, got {shown(v)}", name)
             if v is not None:
-                values[name] = float(v)
+                values[name] = finite_number(v, name)
         return cls(**values)
 
 

@@ -25,6 +25,8 @@ import sqlite3
 import threading
 import time
 
+from . import partials
+
 __all__ = ["STATUSES", "ACTIVE_STATUSES", "FINAL_STATUSES", "Store", "Db", "ConversionPool",
            "new_id", "default_instance_path", "clear_old", "INTERRUPTED_MESSAGE"]
 
@@ -175,6 +177,14 @@ class Store:
     def rendition_folder(self):
         return self.renditions
 
+    def sweep_partials(self):
+        """Remove partial files whose writer is gone (a crash, kill -9) from the instance
+        folders and from every folder the command line remembers; return their paths."""
+        removed = []
+        for folder in (self.uploads, self.outputs, self.renditions):
+            removed += partials.sweep(folder)
+        return removed + partials.sweep_remembered()
+
     def recover_interrupted(self):
         """Mark conversions left ``queued``/``running`` as failed; remove their partial files.
 
@@ -197,13 +207,9 @@ class Store:
 
 
 def _remove_partials(output_path):
-    """Remove ``output_path`` and the writer's temporary files beside it."""
-    from .media import partial_paths
-    for path in partial_paths(output_path) + [output_path]:
-        try:
-            os.unlink(path)
-        except FileNotFoundError:
-            pass
+    """Remove ``output_path`` and the partial files of dead writers beside it."""
+    partials.sweep(os.path.dirname(output_path))
+    _unlink(output_path)
 
 
 class Db:

@@ -24,7 +24,7 @@ import os
 import secrets
 import time
 
-from .. import media
+from .. import media, partials
 from ..jobs import RecipeMismatch
 from ..dsp.errors import ParameterError
 from .cluster import check_paths, connect
@@ -185,9 +185,8 @@ def _submit(client, entry, plan_future, settings, attempt):
 def _convert(client, todo, plans, ledger, progress, settings, *, retries):
     """Submit every entry, follow ``as_completed``; returns rows by output name."""
     from distributed import as_completed
-    for e in todo:
-        for leftover in media.partial_paths(e.job.target):
-            os.unlink(leftover)      # an earlier run's worker died mid-file
+    for folder in sorted({os.path.dirname(os.path.abspath(e.job.target)) for e in todo}):
+        partials.sweep(folder)       # an earlier run's worker died mid-file
     routes = {e.route for e in todo}
     # one copy of each design on every worker, shared by all the files of its route
     plan_futures = {k: client.scatter(plans[k], broadcast=True, hash=False) for k in routes}

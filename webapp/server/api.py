@@ -24,7 +24,7 @@ from .db import get_db, state
 from .errors import ApiError
 from .library import measure, probe_figures
 from .params import (choice, conversion_or_404, integer, json_body, number, rate,
-                     recording_or_404, spec_input)
+                     recording_file_or_410, recording_or_404, spec_input)
 from .uploads import UPLOAD_EXTENSIONS, discard_incoming, display_name, take_upload, \
     upload_extension
 
@@ -35,6 +35,7 @@ bp = Blueprint("api", __name__, url_prefix="/api")
 #: URL templates the page reads from its config element.
 URLS = {
     "health": "/api/health",
+    "openapi": "/api/openapi.json",
     "options": "/api/options",
     "recordings": "/api/recordings",
     "recording": "/api/recordings/{id}",
@@ -103,6 +104,17 @@ def _stem(name):
 @bp.get("/health")
 def health():
     return _json(dict(status="ok", version=__version__))
+
+
+@bp.get("/openapi.json")
+def openapi():
+    """The OpenAPI 3.1 description of this API (webapp/server/openapi.json)."""
+    return current_app.response_class(_openapi_text(), mimetype="application/json")
+
+
+def _openapi_text():
+    with open(os.path.join(os.path.dirname(__file__), "openapi.json"), "rb") as f:
+        return f.read()
 
 
 @bp.get("/options")
@@ -217,7 +229,7 @@ def get_recording(recording_id):
 
 @bp.get("/recordings/<recording_id>/audio")
 def recording_audio(recording_id):
-    rec = recording_or_404(recording_id)
+    rec = recording_file_or_410(recording_or_404(recording_id))
     return send_file(rec["path"], mimetype=_MIMETYPES.get(rec["format"],
                                                           "application/octet-stream"),
                      conditional=True, download_name=rec["name"])
@@ -333,7 +345,7 @@ def create_audit():
 @bp.post("/spectra")
 def create_spectra():
     data = json_body()
-    rec = recording_or_404(data.get("recording_id"))
+    rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
     spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
     max_s = current_app.config["EXCERPT_MAX_S"]
     start_s = number(data, "start_s", low=0.0, unit="s")
@@ -428,7 +440,7 @@ def _recipe_job(data, rec, target_for):
 @bp.post("/conversions")
 def create_conversion():
     data = json_body()
-    rec = _readable(recording_or_404(data.get("recording_id")))
+    rec = _readable(recording_file_or_410(recording_or_404(data.get("recording_id"))))
     recipe = None
     if data.get("recipe") is not None:
         cid = new_id()
@@ -464,13 +476,15 @@ def conversion_events(conversion_id):
     conv = conversion_or_404(conversion_id)
     store = state().store
     interval = float(current_app.config["SSE_INTERVAL_S"])
+    ends = time.monotonic() + float(current_app.config["SSE_MAX_S"])
     cid = conv["id"]
+    release = state().streams.take()   # 429 + Retry-After when all stream slots are taken
 
     def stream():
         last, quiet_since = None, time.monotonic()
         with store.open() as db:
             yield "retry: 1000\n\n"
-            while True:
+            while time.monotonic() < ends:
                 c = db.get_conversion(cid)
                 if c is None:
                     return
@@ -488,8 +502,10 @@ def conversion_events(conversion_id):
                     quiet_since = time.monotonic()
                 time.sleep(interval)
 
-    return Response(stream(), mimetype="text/event-stream",
-                    headers={"Cache-Control": "no-cache", "X-Accel-Buffering": "no"})
+    response = Response(stream(), mimetype="text/event-stream",
+                        headers={"Cache-Control": "no-cache", "X-Accel-Buffering": "no"})
+    response.call_on_close(release)
+    return response
 
 
 @bp.post("/conversions/<conversion_id>/cancel")
@@ -676,13 +692,13 @@ def create_renditions():
     conversion_id = data.get("conversion_id")
     if conversion_id is not None:
         conv = _done_or_409(conversion_or_404(conversion_id))
-        rec = recording_or_404(conv["recording_id"])
+        rec = recording_file_or_410(recording_or_404(conv["recording_id"]))
         plan = st.cache.conversion_plan(spec_module.Spec(**conv["spec"]), conv["fs_in"],
                                         conv["fs_out"])
         converted = dict(path=conv["output_path"], plan=plan)
         conversion_id = conv["id"]
     else:
-        rec = recording_or_404(data.get("recording_id"))
+        rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
         spec, fs_in, fs_out, _ = spec_input(data, fs_in=rec["rate_hz"])
         converted = dict(plan=st.cache.conversion_plan(spec, fs_in, fs_out))
     rid = new_id()
