@@ -17,6 +17,9 @@ __all__ = ["DesignCache", "design_key", "PLAYBACK_PRESET"]
 
 # Renditions for the listening area are brought to the playback rate at this preset.
 PLAYBACK_PRESET = "archival_master"
+# Plans asked for "later" start once the designs have rested this long: during live edits each
+# would take the second core for half a second while the page draws and the next design runs.
+PLANS_REST_S = 0.25
 
 
 def design_key(spec, fs_in, fs_out):
@@ -45,8 +48,10 @@ class DesignCache:
         self._lock = threading.Lock()
         self._pending = {}
         self._executor = ThreadPoolExecutor(max_workers=2, thread_name_prefix="rateferry-design")
+        self._rest_timer = None
 
     def shutdown(self):
+        self.hold_plans()
         self._executor.shutdown(wait=True, cancel_futures=True)
 
     def _memo(self, kind, key, compute, weight=lambda v: 0):
@@ -108,6 +113,29 @@ class DesignCache:
     def plans_async(self, spec, fs_in, fs_out):
         """Start :meth:`plans` on a helper thread; returns a future of (dict, cached?)."""
         return self._executor.submit(self.plans, spec, fs_in, fs_out)
+
+    def plans_after_rest(self, spec, fs_in, fs_out, *, rest_s=PLANS_REST_S):
+        """Start :meth:`plans` once no other design has been asked for during ``rest_s``."""
+        timer = threading.Timer(rest_s, self._start_plans, (spec, fs_in, fs_out))
+        timer.daemon = True
+        with self._lock:
+            if self._rest_timer is not None:
+                self._rest_timer.cancel()
+            self._rest_timer = timer
+        timer.start()
+
+    def hold_plans(self):
+        """A new design is on its way: plans waiting for a rest don't start."""
+        with self._lock:
+            if self._rest_timer is not None:
+                self._rest_timer.cancel()
+                self._rest_timer = None
+
+    def _start_plans(self, spec, fs_in, fs_out):
+        try:
+            self.plans_async(spec, fs_in, fs_out)
+        except RuntimeError:   # shut down meanwhile: nobody will ask for them
+            pass
 
     def route_plan(self, spec, fs_in, fs_out):
         """The Plan a conversion with ``spec`` runs (:func:`choose_plan`), unverified."""

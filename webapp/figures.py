@@ -23,8 +23,8 @@ import numpy as np
 from webapp import media
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.polyphase import convert
-from webapp.dsp.spectrum import band_energy_db, db, decimate_for_plot, dense_response, \
-    response_at, welch_spectrum
+from webapp.dsp.spectrum import band_energy_db, bucket_extreme, db, decimate_for_plot, \
+    dense_response, response_at, welch_spectrum
 from webapp.dsp.stages import as_plan, cascade_response, plan_options
 
 __all__ = ["design_view", "mask_view", "verdict", "plans_view", "minmax_decimate",
@@ -65,14 +65,8 @@ def minmax_decimate(x, y, *, max_points):
         return x, y
     buckets = max(1, max_points // 2)
     edges = np.linspace(0, x.size, buckets + 1).astype(int)
-    keep = []
-    for a, b in zip(edges[:-1], edges[1:]):
-        if b <= a:
-            continue
-        seg = y[a:b]
-        i, j = a + int(np.argmin(seg)), a + int(np.argmax(seg))
-        keep.extend(sorted({i, j}))
-    keep = np.asarray(keep)
+    keep = np.unique(np.concatenate([bucket_extreme(y, edges, largest=False),
+                                     bucket_extreme(y, edges, largest=True)]))
     return x[keep], y[keep]
 
 

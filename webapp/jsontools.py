@@ -26,6 +26,8 @@ def jsonable(value):
     if isinstance(value, dict):
         return {str(k): jsonable(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
+        if all(type(v) is float for v in value):   # plot curves: skip the recursion
+            return [v if math.isfinite(v) else None for v in value]
         return [jsonable(v) for v in value]
     if isinstance(value, np.ndarray):
         return jsonable(value.tolist())

@@ -4,11 +4,14 @@ Conventions: frequencies in Hz with the rate explicit; responses are complex gai
 are ``20 log10 |H|`` (responses) or ``10 log10`` of power densities (spectra).
 """
 
+import hashlib
+import threading
+
 import numpy as np
 from scipy import signal
 
 __all__ = ["response_at", "dense_response", "welch_spectrum", "db", "decimate_for_plot",
-           "band_energy_db"]
+           "bucket_extreme", "band_energy_db"]
 
 TINY = 1e-300
 
@@ -34,17 +37,41 @@ def response_at(taps, rate_hz, freqs_hz):
     return out
 
 
+# The last few dense responses, keyed by the bytes of the taps: a design is measured once and
+# then plotted (response, passband close-up) from the same grid without another large FFT.
+_DENSE_KEPT = 2
+_dense_memo = []
+_dense_lock = threading.Lock()
+
+
 def dense_response(taps, rate_hz, *, points_per_lobe=16, min_nfft=2**16, max_nfft=2**24):
     """Response on the uniform grid 0 .. rate/2 by one zero-padded real FFT.
 
     The grid holds about ``points_per_lobe`` points per sidelobe (the sidelobe period of an
     N-tap filter is rate/N), so peaks are sampled to within a small fraction of a dB.
+    The last few results are kept (keyed by the taps' bytes) and returned read-only.
 
     Returns
     -------
     freqs_hz, H : ndarray
     """
-    taps = np.asarray(taps, dtype=np.float64)
+    taps = np.ascontiguousarray(taps, dtype=np.float64)
+    key = (hashlib.blake2b(taps.tobytes(), digest_size=16).digest(), taps.size,
+           float(rate_hz), points_per_lobe, min_nfft, max_nfft)
+    with _dense_lock:
+        for k, value in _dense_memo:
+            if k == key:
+                return value
+    value = _dense_response(taps, rate_hz, points_per_lobe, min_nfft, max_nfft)
+    for a in value:
+        a.flags.writeable = False
+    with _dense_lock:
+        _dense_memo.insert(0, (key, value))
+        del _dense_memo[_DENSE_KEPT:]
+    return value
+
+
+def _dense_response(taps, rate_hz, points_per_lobe, min_nfft, max_nfft):
     nfft = 1 << int(np.ceil(np.log2(max(min_nfft, points_per_lobe * taps.size))))
     nfft = min(nfft, max_nfft)
     if taps.size > nfft:
@@ -109,10 +136,27 @@ def decimate_for_plot(freqs, values, *, max_points=2000, log_axis=False):
         edges = np.linspace(freqs[0], freqs[-1], max_points + 1)
     idx = np.searchsorted(freqs, edges)
     idx[0], idx[-1] = 0, freqs.size      # the buckets cover every point, both ends included
-    out_f, out_v = [], []
-    for a, b in zip(idx[:-1], idx[1:]):
-        if b > a:
-            k = a + int(np.argmax(values[a:b]))
-            out_f.append(freqs[k])
-            out_v.append(values[k])
-    return np.asarray(out_f), np.asarray(out_v)
+    k = bucket_extreme(values, idx, largest=True)
+    return freqs[k], values[k]
+
+
+def bucket_extreme(values, edges, *, largest):
+    """Index of the first largest (or smallest) value of each non-empty bucket
+    ``values[edges[i]:edges[i + 1]]``, as ``np.argmax`` / ``np.argmin`` would pick it, in
+    bucket order. ``edges`` rise from 0 to ``values.size``."""
+    values = np.asarray(values)
+    edges = np.asarray(edges, dtype=np.int64)
+    starts = edges[:-1][edges[:-1] < edges[1:]]
+    if starts.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    if np.issubdtype(values.dtype, np.floating) and np.isnan(values).any():
+        pick = np.argmax if largest else np.argmin
+        stops = np.append(starts[1:], values.size)
+        return np.asarray([a + int(pick(values[a:b])) for a, b in zip(starts, stops)],
+                          dtype=np.int64)
+    ufunc = np.maximum if largest else np.minimum
+    best = ufunc.reduceat(values, starts)
+    bucket = np.repeat(np.arange(starts.size), np.diff(np.append(starts, values.size)))
+    hits = np.flatnonzero(values == best[bucket])
+    _, first = np.unique(bucket[hits], return_index=True)
+    return hits[first]

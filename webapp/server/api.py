@@ -258,17 +258,16 @@ def _store_design(spec, fs_in, fs_out, figures):
 
 def _design_body(spec, fs_in, fs_out, design_id, want_plans, t0):
     cache = state().cache
+    cache.hold_plans()
     view, cached = cache.view(spec, fs_in, fs_out)
     if design_id is None:
         design_id = _store_design(spec, fs_in, fs_out, view["figures"])
-    # the plans start only now, so they don't slow the design itself down; without
-    # want_plans they are ready a little later at GET /api/designs/<id>/plans
-    future = cache.plans_async(spec, fs_in, fs_out)
     body = dict(id=design_id)
     body.update(view)
     body["plans_url"] = _url("design_plans", id=design_id)
     if want_plans:
-        plans, plans_cached = _plans_or_error(future)
+        # the plans start only now, so they don't slow the design itself down
+        plans, plans_cached = _plans_or_error(cache.plans_async(spec, fs_in, fs_out))
         cached = cached and plans_cached
         body["plans"] = plans
     body["timing"] = dict(design_ms=view["figures"]["design_ms"],
@@ -299,8 +298,9 @@ def create_design():
     if data.get("recording_id") is not None:
         fs_in = recording_or_404(data["recording_id"])["rate_hz"]
     spec, fs_in, fs_out, design_id = spec_input(data, fs_in=fs_in)
-    return _json(_design_body(spec, fs_in, fs_out, design_id, _bool(data, "plans", True), t0),
-                 clean=True)
+    want = _bool(data, "plans", True)
+    return _plans_after(_json(_design_body(spec, fs_in, fs_out, design_id, want, t0), clean=True),
+                        want, spec, fs_in, fs_out)
 
 
 @bp.get("/designs/<design_id>")
@@ -308,7 +308,19 @@ def get_design(design_id):
     t0 = time.perf_counter()
     spec, fs_in, fs_out, design_id = spec_input({"design_id": design_id})
     want = request.args.get("plans", "true").lower() not in ("0", "false", "no")
-    return _json(_design_body(spec, fs_in, fs_out, design_id, want, t0), clean=True)
+    return _plans_after(_json(_design_body(spec, fs_in, fs_out, design_id, want, t0), clean=True),
+                        want, spec, fs_in, fs_out)
+
+
+def _plans_after(response, want_plans, spec, fs_in, fs_out):
+    """Without the plans in the body, start them once the response has gone out and the
+    designs have rested (live edits: each would take the second core for half a second while
+    the page draws and the next design is made); GET /api/designs/<id>/plans starts them at
+    once if they are not ready."""
+    if not want_plans:
+        cache = state().cache
+        response.call_on_close(lambda: cache.plans_after_rest(spec, fs_in, fs_out))
+    return response
 
 
 @bp.get("/designs/<design_id>/plans")

@@ -273,7 +273,9 @@ export function init(root, state) {
     }
   }, 600);
 
-  const soon = debounce(redesign, 300);
+  // short enough that the plots follow an edit within a quarter of a second; a request still
+  // in flight is aborted by the next one
+  const soon = debounce(redesign, 80);
   let designedFor = null;     // the recording the last request was for (a refresh of its figures is no reason to redesign)
   state.on(['route', 'recording'], (s, keys) => {
     if (keys.includes('recording')) {
