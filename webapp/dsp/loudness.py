@@ -489,6 +489,24 @@ class TruePeakResult:
     oversampling: int
 
 
+def channel_peaks(x):
+    """Largest |x| of each channel of a frames x channels block (``np.abs(x).max(axis=0)``).
+
+    Reduced as rows of 128 frames, so the reduction runs along contiguous memory: a reduction
+    over the frames of a 2-channel block is many times slower."""
+    frames, channels = x.shape
+    width = 128 * channels
+    rows = (frames * channels) // width
+    peaks = np.zeros(channels, dtype=x.dtype)
+    if rows:
+        flat = np.ascontiguousarray(x).reshape(-1)[:rows * width]
+        peaks = np.abs(flat).reshape(rows, width).max(axis=0).reshape(-1, channels).max(axis=0)
+    done = rows * width // channels
+    if done < frames:
+        peaks = np.maximum(peaks, np.abs(x[done:]).max(axis=0))
+    return peaks
+
+
 class TruePeakMeter:
     """Streaming true-peak meter after ITU-R BS.1770-4 Annex 2.
 
@@ -513,8 +531,10 @@ class TruePeakMeter:
     that the band-limited reconstruction overshoots, and the meter reports that overshoot.
 
     Cost: about 300 multiply-adds per frame and channel in float32 matrix products (relative
-    error about 1e-7, i.e. 1e-6 dB); rows that cannot raise the peak skip the second stage
-    (see ``benchmarks/bench_meters.py``).
+    error about 1e-7, i.e. 1e-6 dB); the loudest chunks of a block go first, chunks whose bound
+    stays under the running peak are not interpolated at all and rows that cannot raise it
+    skip the second stage (see ``benchmarks/bench_meters.py``: about 0.65x a 120 dB
+    conversion on programme, 1.7x on a full-scale sine, where nothing can be skipped).
     """
 
     def __init__(self, *, rate_hz, channels):
@@ -530,7 +550,7 @@ class TruePeakMeter:
         x = _as_frames(block, self.channels)
         if x.shape[0] == 0:
             return
-        self._sample = np.maximum(self._sample, np.abs(x).max(axis=0))
+        self._sample = np.maximum(self._sample, channel_peaks(x))
         self._take(self._poly.process(x, floor=self._true, running=True))
 
     def _take(self, envelope):

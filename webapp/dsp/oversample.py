@@ -181,6 +181,9 @@ class PeakInterpolator:
         self._half = _band_matrix(d.half[None, :], _MID_GROUP)
         self._fine_t = np.ascontiguousarray(_band_matrix(d.fine, _FINE_GROUP).T)
         self._gain = d.fine_gain
+        # any 16x output is at most this times the largest input in its reach: the second
+        # stage's gain over 2x samples that are inputs or half-way points (sum |half| each)
+        self._chunk_gain = d.fine_gain * max(1.0, float(np.abs(d.half).sum()))
         # input from frame self._start on; frames before 0 are silence
         self._buf = np.zeros((self.channels, _BEFORE + EDGE_FRAMES), dtype=np.float32)
         self._start = -EDGE_FRAMES - _BEFORE
@@ -216,9 +219,11 @@ class PeakInterpolator:
 
     def _run(self, frames, floor, running):
         """Envelope (or peak) of ``frames`` frames from ``self._next``, chunk by chunk."""
+        floor = np.broadcast_to(np.asarray(floor, dtype=np.float64), (self.channels,)).copy()
+        if self.peak_only and running:
+            return self._run_peaks(frames, floor)
         parts = []
         done = 0
-        floor = np.broadcast_to(np.asarray(floor, dtype=np.float64), (self.channels,)).copy()
         while done < frames:
             count = min(_CHUNK_FRAMES, frames - done)
             lo = self._next - _BEFORE - self._start
@@ -238,6 +243,39 @@ class PeakInterpolator:
         if not parts:
             return np.zeros((0, self.channels))
         return np.concatenate(parts, axis=1).T
+
+    def _run_peaks(self, frames, floor):
+        """The per-channel peak of ``frames`` frames from ``self._next`` (a meter's running
+        peak): the loudest chunks first, so the floor is high early, and a chunk whose bound
+        (``chunk_gain`` times its largest input in reach) stays under the floor is not
+        interpolated at all: it reports its sample peak, which is below the floor too. The
+        peak returned is the same as chunk by chunk in order (every value that can reach the
+        floor is computed); only values under it may differ."""
+        starts = np.arange(0, frames, _CHUNK_FRAMES)
+        counts = np.minimum(_CHUNK_FRAMES, frames - starts)
+        base = self._next - _BEFORE - self._start
+        samples = np.empty((starts.size, self.channels))
+        reach = np.empty((starts.size, self.channels))
+        for k, (a, n) in enumerate(zip(starts, counts)):
+            mags = np.abs(self._buf[:, base + a:base + a + _BEFORE + n + _AFTER])
+            samples[k] = mags[:, _BEFORE:_BEFORE + n].max(axis=1)
+            reach[k] = mags.max(axis=1)
+        peak = np.zeros(self.channels)
+        for k in np.argsort(-samples.max(axis=1), kind="stable"):
+            a, n = int(starts[k]), int(counts[k])
+            if np.all(self._chunk_gain * reach[k] < floor * (1.0 - 1e-4)):
+                part = samples[k]
+            else:
+                window = self._buf[:, base + a:base + a + _BEFORE + n + _AFTER]
+                part = self._chunk(window, n, floor)[0]
+            np.maximum(floor, part, out=floor)
+            np.maximum(peak, part, out=peak)
+        self._next += int(frames)
+        cut = self._next - _BEFORE - self._start
+        if cut > 0:
+            self._buf = np.ascontiguousarray(self._buf[:, cut:])
+            self._start += cut
+        return peak[None, :] if frames > 0 else np.zeros((0, self.channels))
 
     def _chunk(self, window, count, floor):
         """Envelope (channels x count) of the frames of ``window`` after its first _BEFORE.
