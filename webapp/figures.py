@@ -19,6 +19,7 @@ Conventions
 import math
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from webapp import media
 from webapp.dsp.errors import ParameterError
@@ -351,7 +352,9 @@ def spectra_view(path, probe, plan, *, start_s=None, length_s=None, log_axis=Fal
     n_src = 8192 if fs_in <= 50000 else 16384
     n_tgt = max(16, int(round(n_src * fs_out / fs_in)))
     for s, l in parts:
-        x, y = _padded_convert(path, fs_in, probe.channels, probe.frames, s, l, plan)
+        # one BLAS thread, as in the pipeline: the converter's products gain nothing from more
+        with threadpool_limits(limits=1, user_api="blas"):
+            x, y = _padded_convert(path, fs_in, probe.channels, probe.frames, s, l, plan)
         f_src, p_src = welch_spectrum(x, fs_in, nperseg=n_src)
         f_tgt, p_tgt = welch_spectrum(y, fs_out, nperseg=n_tgt)
         w = float(x.shape[0])
