@@ -1,6 +1,7 @@
 """Listening: renditions of an excerpt (original, converted, difference) level-matched and
 time-aligned at the playback rate, and the statistics of blind trials (no Flask here)."""
 
+from fractions import Fraction
 import math
 import os
 
@@ -21,7 +22,9 @@ RENDITION_MIN_S = 0.5
 def binomial_tail(correct, trials):
     """P(at least ``correct`` right of ``trials`` by guessing, p = 1/2): the one-sided
     binomial tail, summed exactly."""
-    return math.fsum(math.comb(trials, k) for k in range(correct, trials + 1)) / 2.0 ** trials
+    # exact integers, divided once: 2.0 ** trials overflows a float beyond 1023 trials
+    return float(Fraction(sum(math.comb(trials, k) for k in range(correct, trials + 1)),
+                          1 << trials))
 
 
 def _grid_hz(*rates):
