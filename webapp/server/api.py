@@ -18,7 +18,7 @@ from webapp.delivery import DITHERS, Delivery
 from webapp import jobs
 
 from webapp import figures, listening
-from webapp.designs import PLAYBACK_PRESET, design_key
+from webapp.designs import PLAYBACK_PRESET, design_estimate, design_key
 from webapp.recipe import recipe_file_name
 from .db import get_db, state
 from .errors import ApiError
@@ -42,6 +42,8 @@ URLS = {
     "designs": "/api/designs",
     "design": "/api/designs/{id}",
     "design_plans": "/api/designs/{id}/plans",
+    "design_estimate": "/api/estimates",
+    "recording_overview": "/api/recordings/{id}/overview",
     "audits": "/api/audits",
     "spectra": "/api/spectra",
     "conversions": "/api/conversions",
@@ -62,6 +64,9 @@ URLS = {
 
 COMMON_RATES_HZ = (8000, 11025, 16000, 22050, 24000, 32000, 44100, 48000, 88200, 96000,
                    176400, 192000)
+#: The page's first target: the first of these that differs from the recording's rate.
+DEFAULT_TARGETS_HZ = (48000, 44100)
+DEFAULT_FORMAT = "flac"
 #: Output format names the page offers -> file extension.
 OUTPUT_FORMAT_EXTENSIONS = {"flac": ".flac", "wav": ".wav", "aiff": ".aiff", "w64": ".w64",
                             "rf64": ".rf64", "ogg": ".ogg", "opus": ".opus"}
@@ -103,7 +108,8 @@ def health():
 
 @bp.get("/options")
 def options():
-    presets = {name: dict(label=p["label"], about=p["about"], spec=p["spec"].to_dict())
+    presets = {name: dict(label=p["label"], about=p["about"], spec=p["spec"].to_dict(),
+                          bits=p.get("bits"))
                for name, p in spec_module.PRESETS.items()}
     fields = dict(
         phase=dict(choices=list(spec_module.PHASES)),
@@ -124,6 +130,11 @@ def options():
         common_rates_hz=list(COMMON_RATES_HZ),
         rate_limits_hz=dict(min=MIN_RATE_HZ, max=MAX_RATE_HZ),
         word_lengths=list(media.WORD_LENGTHS), dithers=list(DITHERS),
+        default_delivery=Delivery().to_dict(), default_format=DEFAULT_FORMAT,
+        default_targets_hz=list(DEFAULT_TARGETS_HZ),
+        blind_trial_counts=list(listening.BLIND_TRIAL_COUNTS),
+        blind_trial_default=listening.BLIND_TRIAL_DEFAULT,
+        palette=dict(figures.PALETTE),
         output_formats=list(OUTPUT_FORMAT_EXTENSIONS),
         upload_extensions=sorted(UPLOAD_EXTENSIONS),
         max_upload_bytes=current_app.config["MAX_CONTENT_LENGTH"],
@@ -219,6 +230,20 @@ def recording_audio(recording_id):
                      conditional=True, download_name=rec["name"])
 
 
+@bp.get("/recordings/<recording_id>/overview")
+def recording_overview(recording_id):
+    from webapp.overview import DEFAULT_COLUMNS, overview
+    rec = recording_or_404(recording_id)
+    raw = request.args.get("columns", str(DEFAULT_COLUMNS))
+    try:
+        columns = int(raw)
+    except ValueError:
+        raise ParameterError(f"columns must be a whole number, got {raw!r}", "columns") from None
+    body, cached = state().cache.memo("overview", (rec["id"], columns),
+                                      lambda: jsonable(overview(rec["path"], columns=columns)))
+    return _json(dict(body, recording_id=rec["id"], cached=cached), clean=True)
+
+
 @bp.delete("/recordings/<recording_id>")
 def delete_recording(recording_id):
     rec = recording_or_404(recording_id)
@@ -273,6 +298,17 @@ def _bool(data, name, default):
     if not isinstance(value, bool):
         raise ParameterError(f"{name} must be true or false, got {value!r}", name)
     return value
+
+
+@bp.post("/estimates")
+def estimate_design():
+    """What a design would cost, from the order formulas, before designing it."""
+    data = json_body()
+    fs_in = None
+    if data.get("recording_id") is not None:
+        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
+    spec, fs_in, fs_out, _ = spec_input(data, fs_in=fs_in)
+    return _json(design_estimate(spec, fs_in, fs_out))
 
 
 @bp.post("/designs")
@@ -378,7 +414,7 @@ def create_conversion():
         err = rec.get("analysis_error") or {}
         raise ParameterError(err.get("message", "the recording can't be read"), "recording_id")
     spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
-    fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
+    fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default=DEFAULT_FORMAT)
     ext = OUTPUT_FORMAT_EXTENSIONS[fmt]
     delivery = Delivery.from_dict(data.get("delivery"))
     st = state()
