@@ -388,12 +388,19 @@ def create_spectra():
 # ---------------------------------------------------------------------------------------------
 # conversions
 
+def _sheet_name(download_name):
+    return os.path.splitext(download_name)[0] + "_sheet.html"
+
+
 def _public_conversion(conv, *, figures=True):
     out = {k: conv[k] for k in ("id", "recording_id", "design_id", "status", "cancel_requested",
                                 "fs_in", "fs_out", "format", "spec", "delivery", "progress",
                                 "error", "download_name", "created", "started", "finished")}
     if figures:
         out["figures"] = conv["figures"]
+    # the names the downloads get (the recipe's as the CLI and the sheet name it)
+    out["recipe_name"] = recipe_file_name(conv["download_name"])
+    out["sheet_name"] = _sheet_name(conv["download_name"])
     cid = conv["id"]
     out["urls"] = dict(self=_url("conversion", id=cid), events=_url("conversion_events", id=cid),
                        cancel=_url("conversion_cancel", id=cid))
@@ -577,8 +584,7 @@ def conversion_sheet(conversion_id):
     finally:
         if os.path.exists(tmp):
             os.unlink(tmp)
-    name = os.path.splitext(conv["download_name"])[0] + "_sheet.html"
-    return _attachment(body, name, "text/html")
+    return _attachment(body, _sheet_name(conv["download_name"]), "text/html")
 
 
 @bp.get("/conversions/<conversion_id>/recipe")
