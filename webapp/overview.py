@@ -25,7 +25,7 @@ import numpy as np
 from webapp import media
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.loudness import MIN_LOUDNESS_RATE_HZ, LoudnessMeter
-from webapp.dsp.overs import FULL_SCALE, TruePeakOvers, full_scale_frames
+from webapp.dsp.overs import FULL_SCALE, TruePeakOvers, frame_peaks, full_scale_frames
 
 __all__ = ["overview", "DEFAULT_COLUMNS", "MAX_COLUMNS", "OVER_THRESHOLD_DBTP"]
 
@@ -109,11 +109,13 @@ def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOL
         col = (np.arange(pos, pos + m, dtype=np.int64) * n) // frames
         starts = np.flatnonzero(np.r_[True, col[1:] != col[:-1]])
         cols = col[starts]                     # distinct and ascending within the block
-        low[cols] = np.minimum(low[cols], np.minimum.reduceat(block.min(axis=1), starts))
-        high[cols] = np.maximum(high[cols], np.maximum.reduceat(block.max(axis=1), starts))
-        at_fs = np.flatnonzero(full_scale_frames(block))
+        lo, hi = _frame_range(block)
+        low[cols] = np.minimum(low[cols], np.minimum.reduceat(lo, starts))
+        high[cols] = np.maximum(high[cols], np.maximum.reduceat(hi, starts))
+        peaks = frame_peaks(block)
+        at_fs = np.flatnonzero(full_scale_frames(block, peaks))
         clipped.add(at_fs + pos, col[at_fs])
-        over = finder.process(block)
+        over = finder.process(block, peaks)
         overs.add(over, col[over - pos])
         if loud is not None:
             loud.process(block)
@@ -127,6 +129,17 @@ def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOL
         full_scale=clipped.figures(rate), overs=overs.figures(rate),
         full_scale_level=FULL_SCALE, over_threshold_dbtp=float(over_threshold_dbtp),
         seconds=time.perf_counter() - t0)
+
+
+def _frame_range(block):
+    """Smallest and largest sample of each frame over its channels (a loop over the channels:
+    numpy reduces a short last axis slowly)."""
+    lo = block[:, 0].copy()
+    hi = block[:, 0].copy()
+    for c in range(1, block.shape[1]):
+        np.minimum(lo, block[:, c], out=lo)
+        np.maximum(hi, block[:, c], out=hi)
+    return lo, hi
 
 
 def _short_term_columns(loud, edges, rate):

@@ -17,21 +17,32 @@ Conventions
 """
 
 import numpy as np
+from scipy.ndimage import maximum_filter1d
 
 from .errors import ParameterError
 from .loudness import annex2_interpolator, true_peak_oversampling
 
-__all__ = ["FULL_SCALE", "full_scale_frames", "TruePeakOvers"]
+__all__ = ["FULL_SCALE", "full_scale_frames", "frame_peaks", "TruePeakOvers"]
 
 FULL_SCALE = 32767 / 32768
 
 
-def full_scale_frames(block):
-    """Boolean per frame: does any channel reach :data:`FULL_SCALE`?"""
+def frame_peaks(block):
+    """Largest |sample| of each frame over its channels (a loop over the few channels: numpy
+    reduces a short last axis slowly)."""
     x = np.asarray(block)
     if x.ndim == 1:
-        x = x[:, None]
-    return np.abs(x).max(axis=1) >= FULL_SCALE
+        return np.abs(x)
+    peak = np.abs(x[:, 0])
+    for c in range(1, x.shape[1]):
+        np.maximum(peak, np.abs(x[:, c]), out=peak)
+    return peak
+
+
+def full_scale_frames(block, peaks=None):
+    """Boolean per frame: does any channel reach :data:`FULL_SCALE`? (``peaks``: the block's
+    :func:`frame_peaks`, when the caller has them.)"""
+    return (frame_peaks(block) if peaks is None else peaks) >= FULL_SCALE
 
 
 class TruePeakOvers:
@@ -66,10 +77,12 @@ class TruePeakOvers:
         self._taps = phases[:, ::-1].T.copy() if phases.shape[0] else None   # 12 x P
         self._reach = float(np.abs(phases).sum(axis=1).max()) if phases.shape[0] else 1.0
         self._history = np.zeros((phases.shape[1] - 1 if phases.shape[0] else 0, channels))
+        self._history_level = np.zeros(self._history.shape[0])
         self._frames = 0
 
-    def process(self, block):
-        """Frame indices (int64, ascending) of the block's true-peak overs."""
+    def process(self, block, peaks=None):
+        """Frame indices (int64, ascending) of the block's true-peak overs (``peaks``: the
+        block's :func:`frame_peaks`, when the caller has them)."""
         x = np.asarray(block, dtype=np.float64)
         if x.ndim == 1:
             x = x[:, None]
@@ -81,15 +94,17 @@ class TruePeakOvers:
         self._frames += n
         if n == 0:
             return np.zeros(0, dtype=np.int64)
-        over = np.abs(x).max(axis=1) > self.threshold            # the samples themselves
+        level_x = frame_peaks(x) if peaks is None else peaks
+        over = level_x > self.threshold                            # the samples themselves
         if self._taps is not None:
             h = self._history.shape[0]
+            level = np.concatenate([self._history_level, level_x])
             data = np.concatenate([self._history, x])
             self._history = data[-h:].copy()
-            level = np.abs(data).max(axis=1)
-            # running maximum over the 12 frames of each window
-            windows = np.lib.stride_tricks.sliding_window_view(level, h + 1)
-            bound = windows.max(axis=1) * self._reach
+            self._history_level = level[-h:].copy()
+            # running maximum over the 12 frames of each window: the filter's output at index
+            # i covers i - 6 .. i + 5, so window k (frames k .. k + 11 of data) is at k + 6
+            bound = maximum_filter1d(level, h + 1)[(h + 1) // 2:(h + 1) // 2 + n] * self._reach
             candidates = np.flatnonzero((bound > self.threshold) & ~over)
             if candidates.size:
                 frames = np.lib.stride_tricks.sliding_window_view(data, h + 1, axis=0)
