@@ -29,7 +29,8 @@ from webapp.dsp.stages import as_plan, cascade_response, plan_options
 
 __all__ = ["design_view", "mask_view", "verdict", "plans_view", "minmax_decimate",
            "peak_decimate", "spectra_view", "excerpt_plan", "check_excerpt", "read_frames",
-           "plan_response", "response_grid", "impulse_curve", "PALETTE", "PLOT_POINTS",
+           "plan_response", "response_grid", "response_with_edges", "passband_curve",
+           "impulse_curve", "PALETTE", "PLOT_POINTS",
            "SPECTRUM_WHOLE_MAX_S", "SPECTRUM_EXCERPTS", "SPECTRUM_EXCERPT_S"]
 
 PLOT_POINTS = 2000
@@ -125,6 +126,30 @@ def plan_response(plan, freqs_hz, *, exact=False):
             f, H = dense_response(s.taps, s.filter_rate_hz)
             out *= np.interp(q, f, np.abs(H) / s.phases)
     return out
+
+
+def response_with_edges(plan):
+    """(freqs, level dB, filter rate): the dense response plus the exact values at both band
+    edges, so a plot shows what the verdict measured there."""
+    plan = as_plan(plan)
+    mask = plan.mask
+    freqs, mag, rate = response_grid(plan)
+    edge_f = np.asarray([mask.passband_hz, mask.stopband_hz])
+    edge_mag = plan_response(plan, edge_f, exact=True)
+    order = np.argsort(np.concatenate([freqs, edge_f]), kind="stable")
+    return (np.concatenate([freqs, edge_f])[order],
+            db(np.concatenate([mag, edge_mag]))[order], rate)
+
+
+def passband_curve(plan, *, max_points=PLOT_POINTS, into_transition=0.25):
+    """(freqs, level dB) of the passband close-up, to ``into_transition`` of the way into the
+    transition band, min/max decimated (ripple troughs survive). The page and the sheet both
+    plot this."""
+    mask = as_plan(plan).mask
+    freqs, level, _ = response_with_edges(plan)
+    edge = mask.passband_hz + into_transition * (mask.stopband_hz - mask.passband_hz)
+    band = freqs <= edge
+    return minmax_decimate(freqs[band], level[band], max_points=max_points)
 
 
 def impulse_curve(design, *, max_points=IMPULSE_POINTS, floor=None):
@@ -225,10 +250,8 @@ def design_view(d):
     sel = freqs <= span
     f_plot, m_plot = decimate_for_plot(freqs[sel], mag_db[sel], max_points=PLOT_POINTS)
 
-    fp, fs = mask.passband_hz, mask.stopband_hz
-    close_hi = min(fs, fp + 0.05 * (fs - fp))
-    pb = freqs <= close_hi
-    f_pb, m_pb = minmax_decimate(freqs[pb], mag_db[pb], max_points=PLOT_POINTS)
+    fp = mask.passband_hz
+    f_pb, m_pb = passband_curve(d)
 
     # impulse response around the main peak, with the -60 dB ringing on both sides
     t_ms, amp, a, b, peak = impulse_curve(d)

@@ -255,13 +255,14 @@ def compare_recipes(recorded, rerun):
     return diffs
 
 
-def prepare_rerun(recipe, source, target, *, probe=None):
+def prepare_rerun(recipe, source, target, *, probe=None, plan=None):
     """The Job a recipe re-run runs: the recipe's spec, rate, delivery and block size, with the
     source checked against the recipe's sha256 before any work (nothing is written for a wrong
     source)."""
     recipe.check_source(source)
     return prepare(source, target, fs_out=recipe.fs_out, spec=recipe.spec,
-                   delivery=recipe.delivery, block_frames=recipe.block_frames, probe=probe)
+                   delivery=recipe.delivery, block_frames=recipe.block_frames, probe=probe,
+                   plan=plan)
 
 
 def rerun(recipe, source, target, *, progress=None, cancel=None, job=None):
@@ -276,5 +277,6 @@ def rerun(recipe, source, target, *, progress=None, cancel=None, job=None):
     result = run(job, progress=progress, cancel=cancel)
     now = recipe_from_result(result, source_name=recipe.source_name,
                              output_name=recipe.data["output"]["name"])
-    return Rerun(result=result, recipe=recipe,
-                 differences=tuple(compare_recipes(recipe.to_dict(), now)))
+    check = Rerun(result=result, recipe=recipe,
+                  differences=tuple(compare_recipes(recipe.to_dict(), now)))
+    return replace(check, result=replace(result, recipe_check=check.figures()))

@@ -26,6 +26,7 @@ import numpy as np
 import soundfile as sf
 
 from webapp import __version__
+from webapp.dsp.dither import WORD_LENGTHS  # word lengths an output may carry (one list)
 from webapp.dsp.errors import AudioFileError, ParameterError
 from webapp.dsp.rates import validate_rate
 
@@ -59,9 +60,6 @@ OUTPUT_FORMATS = {
     ".w64": "W64",
     ".rf64": "RF64",
 }
-
-#: Word lengths an output may carry: integer PCM 16/24 bit, IEEE float 32/64 bit.
-WORD_LENGTHS = ("16", "24", "32f", "64f")
 
 #: The text tags soundfile exposes, in its order.
 TAG_NAMES = (

@@ -66,6 +66,7 @@ class ConversionResult:
     source_sha256: str = ""
     output_sha256: str = ""
     version: str = __version__
+    recipe_check: dict | None = None    # a recipe re-run: reproduces, differences
 
     def figures(self):
         d = self.plan.figures()
@@ -80,6 +81,8 @@ class ConversionResult:
             source_sha256=self.source_sha256, output_sha256=self.output_sha256,
             version=self.version,
         )
+        if self.recipe_check is not None:
+            d["recipe_check"] = dict(self.recipe_check)
         return d
 
 

@@ -7,19 +7,22 @@ Conventions
 -----------
 * The sheet makes no external request: plotly.js comes inlined from the installed plotly
   package, the data sits in ``<script type="application/json">`` elements, a short inline
-  script draws the plots, and a Content-Security-Policy (``default-src 'none'``) makes the
-  browser refuse any fetch, image or font from elsewhere. All user text goes through
-  ``html.escape``; JSON in the page has ``<``, ``>`` and ``&`` written as ``\\u003c`` etc.
+  script draws the plots (it and the stylesheet are package data in ``sheet_assets/``; the
+  plots themselves are built in :mod:`webapp.sheet_plots`), and a Content-Security-Policy
+  (``default-src 'none'``) makes the browser refuse any fetch, image or font from elsewhere.
+  All user text goes through ``html.escape``; JSON in the page has ``<``, ``>`` and ``&``
+  written as ``\\u003c`` etc.
 * Plotted curves are bounded (about 1500 points each; the impulse 3000): responses keep the
   peak of each band (the worst case against the mask shows) plus the exact band edges; long
   curves keep the min and max of each bucket. The sheet stays near 5.1 MB, of which plotly.js
   is 4.8 MB (budget :data:`SHEET_BUDGET_BYTES`). Spectra come from the middle
-  ``SPECTRUM_EXCERPT_S`` seconds of source and output.
+  ``webapp.figures.SPECTRUM_EXCERPT_S`` seconds of source and output.
 * Files are written atomically (:func:`webapp.recipe.write_json_atomic`).
 """
 
 import functools
 import html
+from importlib import resources
 import json
 import math
 import os
@@ -27,18 +30,21 @@ import re
 
 import numpy as np
 
-from . import media
 from .jsontools import jsonable
 from .recipe import recipe_file_name, recipe_from_result, write_json_atomic
-from .figures import (PALETTE, SPECTRUM_EXCERPT_S, impulse_curve, minmax_decimate,
-                      peak_decimate, plan_response, response_grid)
+from . import sheet_plots
+from .sheet_plots import axis_label
+from .dsp.audit import audit as run_audit
 from .dsp.errors import ParameterError, RateferryError
-from .dsp.spectrum import db, welch_spectrum
 
 __all__ = ["SHEET_BUDGET_BYTES", "sheet_html", "write_sheet"]
 
 #: The sheet must stay under this size (plotly.js alone is about 4.8 MB).
 SHEET_BUDGET_BYTES = 6 * 1000 * 1000
+# The bound on each plotted curve, kept under this name for the sheet's tests.
+_CURVE_POINTS = sheet_plots.CURVE_POINTS
+
+
 def _dump_json(obj, *, indent=None):
     if indent is None:
         return json.dumps(obj, allow_nan=False, separators=(",", ":"), ensure_ascii=False)
@@ -46,213 +52,16 @@ def _dump_json(obj, *, indent=None):
 
 
 _TEXT_LIMITS = {"title": 200, "author": 200, "note": 10000}
-_CURVE_POINTS = 1500
-_IMPULSE_POINTS = 3000
-_IMPULSE_FLOOR = 1e-6          # the impulse plot spans taps above -120 dB of the peak
-_FREQ_DIGITS = 7               # significant digits kept in plotted curves (size budget)
-_LEVEL_DIGITS = 6
 
 
 # ============================================================================================
 # the sheet: data
-
-def _sig(values, digits):
-    """Round to ``digits`` significant digits for the page (keeps the file small)."""
-    out = []
-    for v in np.asarray(values, dtype=np.float64).ravel():
-        out.append(float(f"{v:.{digits}g}") if math.isfinite(v) else None)
-    return out
-
-
-_INK, _FILTER, _MASK = PALETTE["ink"], PALETTE["filter"], PALETTE["mask"]
-_LIMIT, _SOURCE, _OUTPUT = PALETTE["limit"], PALETTE["source"], PALETTE["output"]
-_PRERING = PALETTE["prering"]
-
-
-def _line(x, y, name, color, *, dash=None, width=1.6):
-    trace = {"type": "scatter", "mode": "lines", "x": x, "y": y, "name": name,
-             "line": {"color": color, "width": width}, "hoverinfo": "x+y+name"}
-    if dash:
-        trace["line"]["dash"] = dash
-    return trace
-
-
-def _vline(x, label, color, dash="dot"):
-    return {"type": "line", "xref": "x", "yref": "paper", "x0": x, "x1": x, "y0": 0, "y1": 1,
-            "line": {"color": color, "width": 1.2, "dash": dash}, "label_text": label}
-
-
-def _layout(xtitle, ytitle, *, xlog=False, xrange=None, yrange=None, shapes=(), notes=()):
-    lay = {
-        "margin": {"l": 64, "r": 18, "t": 12, "b": 52},
-        "font": {"family": "system-ui, 'Segoe UI', Helvetica, Arial, sans-serif", "size": 12,
-                 "color": _INK},
-        "paper_bgcolor": PALETTE["paper"], "plot_bgcolor": PALETTE["plot"],
-        "xaxis": {"title": {"text": xtitle}, "gridcolor": PALETTE["grid"], "zeroline": False},
-        "yaxis": {"title": {"text": ytitle}, "gridcolor": PALETTE["grid"], "zeroline": False},
-        "legend": {"orientation": "h", "y": -0.2, "x": 0},
-        "showlegend": True,
-        "shapes": [],
-        "annotations": [],
-    }
-    if xlog:
-        lay["xaxis"]["type"] = "log"
-    if xrange is not None:
-        lay["xaxis"]["range"] = list(xrange)
-    if yrange is not None:
-        lay["yaxis"]["range"] = list(yrange)
-    for s in shapes:
-        s = dict(s)
-        text = s.pop("label_text", None)
-        lay["shapes"].append(s)
-        if text:
-            lay["annotations"].append({"x": s["x0"], "y": 1, "xref": "x", "yref": "paper",
-                                       "text": text, "showarrow": False, "xanchor": "left",
-                                       "yanchor": "top", "font": {"size": 10, "color": _LIMIT},
-                                       "textangle": -90})
-    lay["annotations"].extend(notes)
-    if xlog:
-        # annotations on a log axis take log10 positions
-        for a in lay["annotations"]:
-            if a.get("xref") == "x" and a["x"] > 0:
-                a["x"] = math.log10(a["x"])
-    return lay
-
-
-def _nyquist_shapes(result):
-    a, b = result.fs_in / 2.0, result.fs_out / 2.0
-    if a == b:
-        return [_vline(a, f"Nyquist {a:g} Hz", _LIMIT)]
-    return [_vline(a, f"source Nyquist {a:g} Hz", _SOURCE),
-            _vline(b, f"target Nyquist {b:g} Hz", _OUTPUT)]
-
-
-def _response_plots(result):
-    design = result.plan
-    mask = design.mask
-    freqs, mag, rate = response_grid(design)
-    # the grid plus the exact edges, so the plot shows what the verdict measured there
-    edge_f = np.asarray([mask.passband_hz, mask.stopband_hz])
-    edge_mag = plan_response(design, edge_f, exact=True)
-    order = np.argsort(np.concatenate([freqs, edge_f]), kind="stable")
-    freqs = np.concatenate([freqs, edge_f])[order]
-    level = db(np.concatenate([mag, edge_mag]))[order]
-    top = rate / 2.0
-    low = max(freqs[1], 1.0)
-    # decimate each band on its own, so no bucket straddles an edge of the mask
-    pieces = []
-    bands = ((freqs > 0) & (freqs <= mask.passband_hz),
-             (freqs > mask.passband_hz) & (freqs < mask.stopband_hz),
-             freqs >= mask.stopband_hz)
-    for sel, share in zip(bands, (0.4, 0.1, 0.5)):
-        if sel.any():
-            pieces.append(peak_decimate(freqs[sel], level[sel], int(_CURVE_POINTS * share),
-                                    log_axis=True))
-    f_full = np.concatenate([p[0] for p in pieces])
-    v_full = np.concatenate([p[1] for p in pieces])
-    floor = -mask.attenuation_db - 40.0
-    full = {
-        "traces": [
-            _line(_sig(f_full, _FREQ_DIGITS), _sig(np.maximum(v_full, floor - 20), _LEVEL_DIGITS),
-                  "filter response (peak of each band)", _FILTER),
-            _line([low, mask.passband_hz], [-mask.ripple_db, -mask.ripple_db],
-                  "mask: passband", _MASK, dash="dash", width=2),
-            _line([mask.stopband_hz, top], [-mask.attenuation_db, -mask.attenuation_db],
-                  "mask: stopband", _MASK, width=2),
-        ],
-        "layout": _layout("frequency (Hz)", "gain (dB)", xlog=True,
-                          xrange=[math.log10(low), math.log10(top)],
-                          yrange=[floor, 10], shapes=_nyquist_shapes(result)),
-    }
-    # passband close-up: to a quarter of the way into the transition band
-    edge = mask.passband_hz + 0.25 * (mask.stopband_hz - mask.passband_hz)
-    band = freqs <= edge
-    f_pb, v_pb = minmax_decimate(freqs[band], level[band], max_points=_CURVE_POINTS)
-    r = mask.ripple_db
-    close = {
-        "traces": [
-            _line(_sig(f_pb, _FREQ_DIGITS), _sig(v_pb, _LEVEL_DIGITS), "filter response",
-                  _FILTER),
-            _line([0, mask.passband_hz], [r, r], "mask: +ripple", _MASK, dash="dash", width=2),
-            _line([0, mask.passband_hz], [-r, -r], "mask: -ripple", _MASK, dash="dash",
-                  width=2),
-        ],
-        "layout": _layout("frequency (Hz)", "gain (dB)", xrange=[0, edge],
-                          yrange=[-3 * r, 3 * r],
-                          shapes=[_vline(mask.passband_hz,
-                                         f"passband edge {mask.passband_hz:g} Hz", _MASK)]),
-    }
-    return {"response": full, "passband": close}
-
-
-def _impulse_trace(design, name, color):
-    t, v, _, _, _ = impulse_curve(design, max_points=_IMPULSE_POINTS, floor=_IMPULSE_FLOOR)
-    return _line(_sig(t, _FREQ_DIGITS), _sig(v, _LEVEL_DIGITS), name, color, width=1.2)
-
-
-def _impulse_plot(result):
-    plan = result.plan
-    colours = [_FILTER, _SOURCE, _OUTPUT, _INK]
-    traces, shapes, notes = [], [], []
-    for i, d in enumerate(plan.stages):
-        name = f"stage {i + 1} ({d.up}/{d.down})" if plan.multistage else "impulse response"
-        traces.append(_impulse_trace(d, name, colours[i % len(colours)]))
-        if d.prering_ms > 0:
-            shapes.append({"type": "rect", "xref": "x", "yref": "paper", "x0": -d.prering_ms,
-                           "x1": 0, "y0": 0, "y1": 1, "fillcolor": _PRERING, "line":
-                           {"width": 0}, "layer": "below"})
-            notes.append({"x": -d.prering_ms, "y": 0.98 - 0.08 * i, "xref": "x", "yref": "paper",
-                          "text": f"pre-ringing {d.prering_ms:.3g} ms" +
-                          (f" (stage {i + 1})" if plan.multistage else ""),
-                          "showarrow": False, "xanchor": "left",
-                          "font": {"size": 10, "color": _MASK}})
-    return {"traces": traces,
-            "layout": _layout("time from the peak (ms)", "amplitude", shapes=shapes,
-                              notes=notes)}
-
-
-def _spectra_plot(result):
-    """Welch spectra of the same stretch of source and output, or None and the reason."""
-    probe = result.source_probe
-    length = min(SPECTRUM_EXCERPT_S, probe.duration_s)
-    start = max(0.0, (probe.duration_s - length) / 2.0)
-    try:
-        src = media.read_excerpt(result.source_path, start_s=start, length_s=length)
-        out = media.read_excerpt(result.output_path, start_s=start, length_s=length)
-    except (RateferryError, OSError) as exc:
-        return None, getattr(exc, "message", str(exc))
-    f_in, p_in = welch_spectrum(src, result.fs_in)
-    f_out, p_out = welch_spectrum(out, result.fs_out)
-    f_in, p_in = peak_decimate(f_in, p_in, _CURVE_POINTS)
-    f_out, p_out = peak_decimate(f_out, p_out, _CURVE_POINTS)
-    mask = result.plan.mask
-    top = max(result.fs_in, result.fs_out) / 2.0
-    shapes = _nyquist_shapes(result) + [
-        _vline(mask.passband_hz, f"passband edge {mask.passband_hz:g} Hz", _MASK, dash="dash")]
-    plot = {
-        "traces": [
-            _line(_sig(f_in, _FREQ_DIGITS), _sig(p_in, _LEVEL_DIGITS),
-                  f"source ({result.fs_in} Hz)", _SOURCE, width=1.3),
-            _line(_sig(f_out, _FREQ_DIGITS), _sig(p_out, _LEVEL_DIGITS),
-                  f"output ({result.fs_out} Hz)", _OUTPUT, width=1.3),
-        ],
-        "layout": _layout("frequency (Hz)", "power density (dB FS/Hz)", xrange=[0, top],
-                          shapes=shapes),
-        "excerpt": {"start_s": start, "length_s": length,
-                    "nyquist_hz": [result.fs_in / 2.0, result.fs_out / 2.0]},
-    }
-    return plot, ""
-
 
 def _audit_figures(design, audit):
     """(figures dict or None, note)."""
     if audit is None:
         return None, "not run for this sheet"
     if audit == "auto":
-        try:
-            from .dsp.audit import audit as run_audit
-        except ImportError:
-            return None, "the audit module is not available in this installation"
         try:
             audit = run_audit(design)
         except RateferryError as exc:
@@ -267,92 +76,11 @@ def _audit_figures(design, audit):
 
 def _without_curves(audit_figs):
     """The audit's figures for the page: everything but the raw curves, which can hold tens of
-    thousands of points; the plots carry them, reduced (see :func:`_audit_plots`)."""
+    thousands of points; the plots carry them, reduced
+    (see :func:`webapp.sheet_plots.audit_plots`)."""
     if audit_figs is None:
         return None
     return {k: v for k, v in audit_figs.items() if k != "curves"}
-
-
-_AUDIT_CAPTIONS = {
-    "deviation": "Passband deviation measured on the converter's output, beside the prediction "
-                 "from the taps, with the ripple limits.",
-    "alias": "Alias (downsampling) or image (upsampling) level against the input tone's "
-             "frequency, relative to that tone, beside the prediction, with the stopband limit.",
-    "impulse": "Impulse response measured at the converter's output (level relative to its "
-               "peak).",
-}
-
-
-_LABELS = {"thd_n": "THD+N", "thd_n_limit": "THD+N limit", "prering": "pre-ringing",
-           "prering_predicted": "pre-ringing predicted", "alignment_error_us":
-           "alignment error (µs)", "audit_ms": "audit time (ms)", "freq": "frequency",
-           "input": "input tone frequency"}
-
-
-def _axis_label(key):
-    """"worst_alias_input_hz" -> "worst alias input (Hz)"; a few figures keep trade names."""
-    if key in _LABELS:
-        return _LABELS[key]
-    for suffix, unit in (("_hz", "Hz"), ("_ms", "ms"), ("_dbfs", "dBFS"), ("_db", "dB")):
-        if key.endswith(suffix):
-            stem = key[:-len(suffix)]
-            return f"{_LABELS.get(stem, stem.replace('_', ' '))} ({unit})"
-    return key.replace("_", " ")
-
-
-def _keep_index(y, max_points):
-    """Indices that keep the shape of a long curve: the min and the max of each bucket."""
-    idx = np.arange(y.size)
-    return minmax_decimate(idx, np.where(np.isfinite(y), y, 0.0), max_points=max_points)[0]
-
-
-def _as_floats(values):
-    """A JSON list of numbers (None for a missing value) as a float array (nan)."""
-    return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
-
-
-def _audit_plots(figures, mask):
-    """Plots of the audit's curves: per curve, the first *_hz / *_ms list against every
-    *_db list of the same length (other lists, e.g. flags, are left out)."""
-    plots = {}
-    curves = figures.get("curves") if isinstance(figures, dict) else None
-    if not isinstance(curves, dict):
-        return plots
-    colours = [_FILTER, _LIMIT, _SOURCE, _OUTPUT, _INK]
-    for name, curve in curves.items():
-        if not isinstance(curve, dict):
-            continue
-        lists = {k: v for k, v in curve.items() if isinstance(v, list) and len(v) > 0}
-        xs = [k for k in lists if k.endswith(("_hz", "_ms"))]
-        if not xs:
-            continue
-        xk = xs[0]
-        ys = [k for k in lists if k.endswith("_db") and len(lists[k]) == len(lists[xk])]
-        if not ys:
-            continue
-        # long curves (the measured impulse) keep their shape at a bounded size
-        keep = _keep_index(_as_floats(lists[ys[0]]), _CURVE_POINTS)
-        x = _sig(_as_floats(lists[xk])[keep], _FREQ_DIGITS)
-        traces = [dict(_line(x, _sig(_as_floats(lists[k])[keep], _LEVEL_DIGITS),
-                             k.replace("_db", "").replace("_", " "),
-                             colours[j % len(colours)], width=1.4),
-                       mode="lines+markers" if len(x) <= 400 else "lines",
-                       marker={"size": 3})
-                  for j, k in enumerate(ys)]
-        finite = [v for v in x if v is not None]
-        if name == "alias" and finite:
-            traces.append(_line([min(finite), max(finite)], [-mask.attenuation_db] * 2,
-                                "mask: stopband", _MASK, width=2))
-        if name == "deviation" and finite:
-            for sign, label in ((1, "+ripple"), (-1, "-ripple")):
-                traces.append(_line([min(finite), max(finite)], [sign * mask.ripple_db] * 2,
-                                    f"mask: {label}", _MASK, dash="dash", width=2))
-        caption = _AUDIT_CAPTIONS.get(name, f"Audit curve: {name.replace('_', ' ')}.")
-        yrange = [-(mask.attenuation_db + 80.0), 5.0] if name == "impulse" else None
-        plots[f"audit-{name}"] = {"title": caption, "traces": traces,
-                                  "layout": _layout(_axis_label(xk), "level (dB)",
-                                                    yrange=yrange)}
-    return plots
 
 
 def _blind_figures(blind):
@@ -484,111 +212,20 @@ def _check_text(name, value):
     return value
 
 
-_CSS = """
-:root { --ink: #1f2a30; --muted: #5b6770; --rule: #d9d5cc; --paper: #ffffff;
-        --band: #f3f1ec; --filter: #16697a; --mask: #b4532a; --ok: #2c7a4b; --bad: #b02a2a; }
-* { box-sizing: border-box; }
-body { margin: 0; background: var(--band); color: var(--ink);
-       font: 15px/1.45 system-ui, "Segoe UI", Helvetica, Arial, sans-serif; }
-main { max-width: 1040px; margin: 0 auto; padding: 24px 20px 48px; }
-header.sheet-head { background: var(--paper); border-top: 6px solid var(--filter);
-       padding: 20px 24px; margin-bottom: 18px; }
-header.sheet-head h1 { margin: 0 0 6px; font-size: 26px; font-weight: 650; }
-.byline { color: var(--muted); margin: 0; }
-.note { white-space: pre-wrap; margin: 12px 0 0; padding: 10px 12px; background: var(--band);
-        border-left: 3px solid var(--mask); }
-.verdict-badge { display: inline-block; margin-top: 12px; padding: 4px 10px; font-weight: 600;
-        color: #fff; border-radius: 3px; }
-.verdict-badge.meets { background: var(--ok); } .verdict-badge.fails { background: var(--bad); }
-section.sheet-section { background: var(--paper); padding: 16px 24px 20px; margin: 0 0 18px; }
-section.sheet-section h2 { font-size: 19px; margin: 0 0 10px; padding-bottom: 6px;
-        border-bottom: 1px solid var(--rule); }
-h3 { font-size: 15px; margin: 16px 0 6px; }
-.columns { display: grid; grid-template-columns: repeat(auto-fit, minmax(300px, 1fr));
-        gap: 6px 28px; }
-table { border-collapse: collapse; width: 100%; margin: 4px 0 10px; font-size: 14px; }
-th, td { text-align: left; padding: 4px 8px 4px 0; border-bottom: 1px solid #ece9e2;
-        vertical-align: top; }
-table.facts th { font-weight: 500; color: var(--muted); width: 45%; }
-td { font-variant-numeric: tabular-nums; }
-td.hash { overflow-wrap: anywhere; font-family: ui-monospace, Menlo, Consolas, monospace;
-        font-size: 12px; }
-table.verdict thead th, table.stages thead th { color: var(--muted); font-weight: 600; }
-tr.fails td.result { color: var(--bad); font-weight: 700; }
-tr.meets td.result { color: var(--ok); font-weight: 600; }
-table.verdict td.rule { color: var(--muted); font-size: 12px; font-weight: 400; }
-.reason { color: var(--muted); font-size: 13px; margin: 2px 0 8px; }
-figure.plot-figure { margin: 10px 0 16px; }
-.plot { width: 100%; height: 360px; }
-figcaption { color: var(--muted); font-size: 13px; margin-top: 2px; }
-pre.recipe { background: var(--band); padding: 10px 12px; font-size: 12px; overflow-x: auto;
-        max-height: 420px; }
-code { font-size: 13px; }
-.toolbar { margin: 8px 0 0; } .toolbar button { font: inherit; padding: 4px 12px;
-        margin-right: 8px; border: 1px solid var(--filter); background: #fff;
-        color: var(--filter); cursor: pointer; }
-footer { color: var(--muted); font-size: 13px; text-align: center; }
-@media print {
-  @page { size: A4; margin: 14mm; }
-  body { background: #fff; font-size: 10pt; }
-  main { max-width: none; padding: 0; }
-  .no-print, button { display: none !important; }
-  header.sheet-head, section.sheet-section { padding: 0; margin: 0 0 6mm; }
-  section.sheet-section { break-before: page; page-break-before: always; }
-  section.sheet-section.first { break-before: auto; page-break-before: auto; }
-  figure.plot-figure { break-inside: avoid; page-break-inside: avoid; }
-  .plot { width: 180mm !important; height: 88mm !important; }
-  pre.recipe { max-height: none; overflow: visible; white-space: pre-wrap;
-        word-break: break-all; font-size: 7pt; }
-  table { font-size: 9pt; }
-}
-"""
+@functools.lru_cache(maxsize=None)
+def _asset(name):
+    """The text of ``webapp/sheet_assets/<name>``: the sheet's stylesheet (sheet.css) and the
+    script that draws its plots and runs its buttons (sheet.js), inlined into every sheet."""
+    path = resources.files(__package__) / "sheet_assets" / name
+    try:
+        return path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ParameterError(f"the design sheet needs {name} from the installed package "
+                             f"({path}): {exc.strerror}", "sheet") from None
 
-# Draws the plots from the JSON elements; buttons print and save the recipe. No network use.
-_SCRIPT = """
-(function () {
-  "use strict";
-  function data(id) {
-    var el = document.getElementById(id);
-    return el ? JSON.parse(el.textContent) : null;
-  }
-  var plots = data("rf-plots") || {};
-  var config = {displaylogo: false, responsive: true, showLink: false,
-                modeBarButtonsToRemove: ["lasso2d", "select2d", "sendDataToCloud"]};
-  var divs = document.querySelectorAll("div.plot[data-plot]");
-  Array.prototype.forEach.call(divs, function (div) {
-    var p = plots[div.getAttribute("data-plot")];
-    if (p && window.Plotly) { window.Plotly.newPlot(div, p.traces, p.layout, config); }
-  });
-  // A4 at 96 px per inch: 180 mm x 88 mm
-  function sizeFor(print) {
-    Array.prototype.forEach.call(divs, function (div) {
-      if (!div.classList.contains("js-plotly-plot")) { return; }
-      if (print) { window.Plotly.relayout(div, {width: 680, height: 332}); }
-      else { window.Plotly.relayout(div, {width: null, height: null, autosize: true}); }
-    });
-  }
-  window.addEventListener("beforeprint", function () { sizeFor(true); });
-  window.addEventListener("afterprint", function () { sizeFor(false); });
-  var printButton = document.getElementById("rf-print");
-  if (printButton) { printButton.addEventListener("click", function () { window.print(); }); }
-  var saveButton = document.getElementById("rf-save-recipe");
-  if (saveButton) {
-    saveButton.addEventListener("click", function () {
-      var text = JSON.stringify(data("rf-recipe"), null, 2) + "\\n";
-      var url = URL.createObjectURL(new Blob([text], {type: "application/json"}));
-      var a = document.createElement("a");
-      a.href = url;
-      a.download = saveButton.getAttribute("data-name");
-      document.body.appendChild(a);
-      a.click();
-      document.body.removeChild(a);
-      setTimeout(function () { URL.revokeObjectURL(url); }, 0);
-    });
-  }
-})();
-"""
 
+# The sheet's own script and style are inline, as is plotly.js: 'unsafe-inline' lets them run,
+# and nothing else may load.
 _CSP = ("default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; "
         "img-src data: blob:; font-src data:; connect-src 'none'; form-action 'none'; "
         "base-uri 'none'")
@@ -685,7 +322,7 @@ def _audit_section(audit_figs, audit_note, audit_plots):
                and (v is None or isinstance(v, (int, float, str, bool)))]
     if scalars:
         half = (len(scalars) + 1) // 2
-        rows = [(_axis_label(k), f"audit.{k}", v) for k, v in scalars]
+        rows = [(axis_label(k), f"audit.{k}", v) for k, v in scalars]
         parts.append('<h3>Measured figures</h3><div class="columns"><div>'
                      f"{_table(rows[:half])}</div><div>{_table(rows[half:])}</div></div>")
     for plot_id, p in audit_plots.items():
@@ -856,8 +493,8 @@ def sheet_html(result, *, title=None, author=None, note=None, blind=None, audit=
         Blind-trial results (``trials``, ``correct``, ``p_value``, ...); None leaves the
         section out. A missing ``p_value`` is computed (one-sided binomial tail).
     audit : "auto", AuditResult, dict or None, optional
-        "auto" (the default) runs :func:`webapp.dsp.audit.audit` on the design when that module
-        is installed; an AuditResult or its figures are shown as given; None skips the audit.
+        "auto" (the default) runs :func:`webapp.dsp.audit.audit` on the design; an
+        AuditResult or its figures are shown as given; None skips the audit.
     block_frames, created, source_name, output_name : optional
         As :func:`recipe_from_result`, for the embedded recipe (the names show on the sheet
         too).
@@ -883,13 +520,14 @@ def sheet_html(result, *, title=None, author=None, note=None, blind=None, audit=
     title = title or f"Design sheet: {source_name}"
     created_text = recipe["created"].replace("T", " ").replace("Z", " UTC")
 
-    plots = _response_plots(result)
-    plots["impulse"] = _impulse_plot(result)
-    spectra, spectra_note = _spectra_plot(result)
+    plots = sheet_plots.response_plots(result)
+    plots["impulse"] = sheet_plots.impulse_plot(result)
+    spectra, spectra_note = sheet_plots.spectra_plot(result)
     if spectra is not None:
         plots["spectra"] = spectra
     audit_figs, audit_note = _audit_figures(result.plan, audit)
-    audit_plots = {} if audit_figs is None else _audit_plots(audit_figs, result.plan.mask)
+    audit_plots = ({} if audit_figs is None
+                   else sheet_plots.audit_plots(audit_figs, result.plan.mask))
     plots.update(audit_plots)
 
     return "".join([
@@ -897,7 +535,7 @@ def sheet_html(result, *, title=None, author=None, note=None, blind=None, audit=
         f'<meta http-equiv="Content-Security-Policy" content="{_CSP}">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f'<meta name="generator" content="Rateferry {_esc(result.version)}">',
-        f"<title>{_esc(title)}</title><style>{_CSS}</style></head><body><main>",
+        f"<title>{_esc(title)}</title><style>\n{_asset('sheet.css')}</style></head><body><main>",
         _head_html(result, title=title, author=author, note=note, created_text=created_text,
                    source_name=source_name, output_name=output_name),
         _source_html(result, source_name),
@@ -916,7 +554,7 @@ def sheet_html(result, *, title=None, author=None, note=None, blind=None, audit=
         _json_script("rf-blind", blind_figs),
         _json_script("rf-plots", plots),
         f'<script id="rf-plotly">{_plotly_js()}</script>',
-        f"<script>{_SCRIPT}</script></body></html>\n",
+        f"<script>\n{_asset('sheet.js')}</script></body></html>\n",
     ])
 
 

@@ -112,15 +112,12 @@ def new_id():
 def default_instance_path():
     """Where the web app keeps its data when no instance folder is given.
 
-    ``$RATEFERRY_INSTANCE`` if set; else ``instance/`` beside ``pyproject.toml`` when running from a
-    source tree; else ``$XDG_DATA_HOME/rateferry`` (``~/.local/share/rateferry``).
+    ``$RATEFERRY_INSTANCE`` if set; else ``$XDG_DATA_HOME/rateferry`` (``~/.local/share/rateferry``
+    under the user's ``HOME``), for a source tree and an installed wheel alike.
     """
     env = os.environ.get("RATEFERRY_INSTANCE")
     if env:
         return os.path.abspath(env)
-    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    if os.path.isfile(os.path.join(root, "pyproject.toml")):
-        return os.path.join(root, "instance")
     data_home = os.environ.get("XDG_DATA_HOME") or os.path.join(os.path.expanduser("~"),
                                                                  ".local", "share")
     return os.path.join(data_home, "rateferry")
@@ -535,7 +532,7 @@ class ConversionPool:
     def _work(self, conversion_id, run, event):
         from .dsp.errors import RateferryError
         from .pipeline import Cancelled
-        from .cli import jsonable
+        from .jsontools import jsonable
         try:
             with self.store.open() as db:
                 if event.is_set() or not db.start_conversion(conversion_id):

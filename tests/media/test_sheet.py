@@ -698,3 +698,19 @@ def test_sheet_runs_the_real_audit_when_available(converted):
     np.testing.assert_allclose(np.array(shown["y"], dtype=float), ref_v[pos], rtol=1e-5)
     assert max(shown["y"]) == pytest.approx(np.nanmax(ref_v), abs=1e-5)
     assert len(text.encode()) < sheet.SHEET_BUDGET_BYTES
+
+
+def test_the_sheet_and_the_page_plot_the_same_passband_data(converted, page):
+    """One figure builder (webapp.figures.passband_curve) behind both: the page's JSON
+    (webapp.figures.design_view, served by POST /api/designs) and the sheet's plot agree point
+    for point, each within its own rounding (4 decimals on the page, 7 significant digits in
+    the sheet)."""
+    from webapp.figures import design_view
+    _, doc = page
+    sheet_trace = json.loads(doc.scripts["rf-plots"])["passband"]["traces"][0]
+    page_view = design_view(converted["result"].plan)["passband"]
+    fs, ls = np.asarray(sheet_trace["x"]), np.asarray(sheet_trace["y"], dtype=float)
+    fp, lp = np.asarray(page_view["freqs_hz"]), np.asarray(page_view["magnitude_db"])
+    assert fs.size == fp.size > 100
+    np.testing.assert_allclose(fs, fp, rtol=1e-6, atol=1e-4)
+    np.testing.assert_allclose(ls, lp, rtol=1e-6, atol=1e-6)

@@ -67,8 +67,28 @@ class Measured:
                     interpolation_error_db=self.interpolation_error_db)
 
 
+class RouteOfMask:
+    """fs_in, fs_out, up and down of anything that carries its mask (designs and plans)."""
+
+    @property
+    def fs_in(self):
+        return self.mask.fs_in
+
+    @property
+    def fs_out(self):
+        return self.mask.fs_out
+
+    @property
+    def up(self):
+        return self.mask.up
+
+    @property
+    def down(self):
+        return self.mask.down
+
+
 @dataclass(frozen=True, eq=False)
-class Design:
+class Design(RouteOfMask):
     """A designed, measured single-stage prototype and its cost."""
 
     spec: Spec
@@ -93,22 +113,6 @@ class Design:
     measured: Measured
     meets_mask: bool
     design_ms: float
-
-    @property
-    def fs_in(self):
-        return self.mask.fs_in
-
-    @property
-    def fs_out(self):
-        return self.mask.fs_out
-
-    @property
-    def up(self):
-        return self.mask.up
-
-    @property
-    def down(self):
-        return self.mask.down
 
     def figures(self):
         """Plain figures for JSON and reports (no arrays)."""

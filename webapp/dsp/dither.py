@@ -116,7 +116,7 @@ class Quantizer:
     ring or run away; it is clipped to +-1.5 LSB (its bound without clipping), so the loop
     stays bounded and recovers as soon as the signal is back in range. Shaping runs a
     per-sample loop in plain Python, about 1 microsecond per sample (see
-    ``scripts/bench_meters.py``); "none" and "tpdf" are vectorised.
+    ``benchmarks/bench_meter_chain.py``); "none" and "tpdf" are vectorised.
     """
 
     def __init__(self, *, bits, dither=None, seed=0, channels=1, rate_hz=None):

@@ -561,7 +561,7 @@ class TruePeakMeter:
     at fs/4 with 4x (before the passband gain of the phase filters, +0.22 dB there) and up to
     0.47 dB low for 20 kHz at 48 kHz and at 192 kHz alike. EBU Tech 3341 allows +0.2 / -0.4 dB
     on its test tones (fs/4 and below). Cost: 12 multiply-adds per output in a float32 matrix
-    product, with rows that cannot raise the peak skipped (see ``scripts/bench_meters.py``).
+    product, with rows that cannot raise the peak skipped (see ``benchmarks/bench_meter_chain.py``).
     """
 
     def __init__(self, *, rate_hz, channels):

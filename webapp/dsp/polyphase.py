@@ -13,22 +13,26 @@ Conventions
 The math (see DESIGN.md): with prototype h (N taps at fs_in*L) and T = ceil(N/L) taps per phase,
 output n = qL + r, with p = rM + D = a_r L + b_r, is
     y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j].
-Outputs of one block (K*L of them when L is small) are split into a few groups of neighbouring
-residues; each group is one dense matrix product of a strided window matrix with a small
-coefficient matrix, so BLAS does the work. Channels stack as more rows.
+A row of K*L outputs (K blocks) is split into groups of neighbouring residues; each group is one
+dense product of a strided view of the input (read in place by BLAS, see bank.py) with a small
+coefficient matrix. Channels are laid end to end so they stack as more rows of one product.
 """
 
+from fractions import Fraction
 import math
+import numbers
 
 import numpy as np
+from numpy.lib.stride_tricks import as_strided
 
+from .bank import bank_layout
 from .errors import ParameterError
 
 __all__ = ["PolyphaseConverter", "ArbitraryConverter", "CascadeConverter", "make_converter",
-           "convert", "output_length"]
+           "convert", "output_length", "real_ratio"]
 
-_GROUP_ROWS = 96          # outputs per coefficient matrix: wide enough for BLAS, little waste
-_CHUNK_ELEMENTS = 1 << 21  # window-matrix elements per product (16 MB in float64)
+_CHUNK_FRAMES = 1 << 17   # input frames per product in the exact converter
+_MAX_DENOMINATOR = 1 << 40  # arbitrary path: position denominator, keeps block offsets in int64
 
 
 def output_length(frames, up, down):
@@ -116,6 +120,12 @@ class PolyphaseConverter(_Streaming):
     dtype : {"float32", "float64"}
     delay : int, optional
         Delay to remove, in samples at the filter rate; default (len(taps) - 1) // 2.
+
+    Notes
+    -----
+    The products run on strided views of the input, laid out by
+    :func:`~webapp.dsp.bank.bank_layout`; products in float32 accumulate in float32 (about
+    -125 dB relative error, see DESIGN.md), so masks beyond about 120 dB want float64.
     """
 
     def __init__(self, taps, up, down, *, channels=1, dtype="float64", delay=None):
@@ -126,33 +136,12 @@ class PolyphaseConverter(_Streaming):
                                  "up")
         self.numtaps = h.size
         self.delay = (h.size - 1) // 2 if delay is None else int(delay)
-        L, M, D = self.up, self.down, self.delay
-        T = -(-h.size // L)
-        self.taps_per_phase = T
-        hp = np.zeros(T * L)
-        hp[:h.size] = h
-        # group K blocks of L outputs when L is small, so each product has enough columns
-        K = max(1, -(-_GROUP_ROWS // L)) if L < _GROUP_ROWS else 1
-        self._rows = R = K * L
-        self._stride = K * M
-        r = np.arange(R)
-        p = r * M + D
-        off, b = p // L, p % L
-        groups = []
-        ngroups = max(1, round(R / _GROUP_ROWS))
-        bounds = np.linspace(0, R, ngroups + 1).round().astype(int)
-        for g0, g1 in zip(bounds[:-1], bounds[1:]):
-            lo = int(off[g0]) - (T - 1)
-            width = int(off[g1 - 1]) - int(off[g0]) + T
-            mat = np.zeros((width, g1 - g0))
-            j = np.arange(T)
-            for col, rr in enumerate(range(g0, g1)):
-                rows = off[rr] - j - lo
-                mat[rows, col] = hp[j * L + b[rr]]
-            groups.append((int(g0), int(g1), lo, width, mat.astype(dtype)))
-        self._groups = groups
-        self._lo = min(g[2] for g in groups)
-        self._hi = max(g[2] + g[3] for g in groups)   # window end (exclusive) relative to q*stride
+        self.taps_per_phase = -(-h.size // self.up)
+        self._layout = bank_layout(h, self.up, self.down, self.delay, dtype)
+        self._rows = self._layout.rows_out
+        self._stride = self._layout.stride
+        self._lo, self._hi = self._layout.lo, self._layout.hi
+        self._scratch = None
         self._init_stream(channels, dtype, max(0, -self._lo))
 
     def _reset_position(self):
@@ -160,28 +149,51 @@ class PolyphaseConverter(_Streaming):
 
     def _blocks_ready(self):
         end = self._buf_start + self._buf.shape[1]
-        # block q is ready when q*stride + hi <= end
+        # row q is ready when q*stride + hi <= end
         avail = (end - self._hi) // self._stride + 1
         return max(0, avail - self._q)
 
+    def _frame(self, nq):
+        """The inputs of rows q .. q+nq-1, channels end to end with a stride of P*S frames.
+
+        Row i of the flat array then starts at i*S for every channel (channel c's row q is
+        i = c*P + q), so one product covers all channels; the few rows between channels read
+        across the boundary and are dropped.
+        """
+        lay, S = self._layout, self._stride
+        first = self._q * S - self._buf_start + lay.lo
+        need = (nq - 1) * S + lay.hi - lay.lo
+        if self.channels == 1:
+            return self._buf[0, first:first + need], nq
+        P = nq + -(-(lay.hi - lay.lo) // S)
+        if self._scratch is None or self._scratch.size < self.channels * P * S:
+            self._scratch = np.empty(self.channels * P * S, dtype=self.dtype)
+        frame = self._scratch[:self.channels * P * S].reshape(self.channels, P * S)
+        frame[:, :need] = self._buf[:, first:first + need]
+        frame[:, need:] = 0
+        return frame.reshape(-1), P
+
     def _run(self, nq):
-        C, R, S = self.channels, self._rows, self._stride
-        out = np.empty((C, nq, R), dtype=self.dtype)
-        buf = self._buf
-        item = buf.itemsize
-        base = self._q * S - self._buf_start
-        for g0, g1, lo, width, mat in self._groups:
-            step = max(1, _CHUNK_ELEMENTS // (width * C))
-            for q0 in range(0, nq, step):
-                n = min(step, nq - q0)
-                start = base + q0 * S + lo
-                view = np.lib.stride_tricks.as_strided(
-                    buf[:, start:], shape=(C, n, width),
-                    strides=(buf.strides[0], S * item, item), writeable=False)
-                win = np.ascontiguousarray(view).reshape(C * n, width)
-                out[:, q0:q0 + n, g0:g1] = (win @ mat).reshape(C, n, g1 - g0)
+        C, R, S, lay = self.channels, self._rows, self._stride, self._layout
+        flat, P = self._frame(nq)
+        item = flat.itemsize
+        out = np.empty((C, P, R), dtype=self.dtype)
+        rows = (C - 1) * P + nq
+        step = max(1, _CHUNK_FRAMES // S)   # rows per product: inputs stay in cache
+        for i0 in range(0, rows, step):
+            n = min(step, rows - i0)
+            for st in lay.stacks:
+                start = i0 * S + st.base - lay.lo
+                win = as_strided(flat[start:], shape=(st.groups, n, st.width),
+                                 strides=(st.step * item, S * item, item), writeable=False)
+                if lay.copy:        # overlapping windows: BLAS needs them copied
+                    win = np.ascontiguousarray(win)
+                dst = as_strided(out.reshape(C * P, R)[i0:, st.column:],
+                                 shape=(st.groups, n, st.size),
+                                 strides=(st.size * item, R * item, item))
+                np.matmul(win, st.mats, out=dst)
         self._q += nq
-        return out.reshape(C, nq * R).T
+        return out[:, :nq].reshape(C, nq * R).T
 
     def process(self, block):
         """Feed a frames x channels block; return the output frames now complete."""
@@ -207,17 +219,45 @@ class PolyphaseConverter(_Streaming):
 
 
 class ArbitraryConverter(_Streaming):
-    """Bandlimited interpolation for ratios whose exact polyphase bank is too large.
+    """Bandlimited interpolation for ratios whose exact polyphase bank is too large, and for
+    real (non-whole-Hz) ratios such as a drifting clock.
 
     A prototype sampled at ``phases`` points per input sample; each output takes the two
     nearest phase filters and interpolates their coefficients linearly by the fractional
-    position (Smith & Gossett, ICASSP 1984). Positions are exact integers: output n sits at
-    input position n*down/up, split into whole samples, table phase and remainder.
+    position (Smith & Gossett, ICASSP 1984).
+
+    Parameters
+    ----------
+    taps : array_like
+        Prototype at fs_in * phases with DC gain ``phases``.
+    up, down : int
+        Output frames per input frame as an exact rational ``up/down``. Either may be a very
+        large Python int (a real ratio held to about 1e-12, see :func:`real_ratio`); ``up``
+        must stay below 2**40 so that the per-block position arithmetic fits in int64.
+    phases : int
+    start : number, optional
+        Input position (frames, may be negative or fractional) of output frame 0; it is held
+        as the nearest multiple of 1/up. Default 0. A positive start trims the head of the
+        input, a negative one pads it with silence.
+    frames_out : int, optional
+        Fixed total output length; default ``ceil((frames_in - start) * up / down)``.
+
+    Notes
+    -----
+    Positions are exact rationals with denominator ``up``: output n sits at input position
+    (start_num + n * down) / up. The block base is computed with Python's unbounded ints and
+    the offsets within a block with int64 from down = I*up + F (whole and fractional step), so
+    nothing is accumulated in floating point and hours of audio don't drift; any block size
+    gives the same positions.
     """
 
-    def __init__(self, taps, up, down, phases, *, channels=1, dtype="float64", delay=None):
+    def __init__(self, taps, up, down, phases, *, channels=1, dtype="float64", delay=None,
+                 start=0, frames_out=None):
         h = np.asarray(taps, dtype=np.float64)
         self.up, self.down, self.phases = int(up), int(down), int(phases)
+        if self.up < 1 or self.down < 1 or self.up >= _MAX_DENOMINATOR:
+            raise ParameterError(f"up/down must be positive integers with up below 2**40, got "
+                                 f"{up}/{down}", "up")
         P = self.phases
         self.delay = (h.size - 1) // 2 if delay is None else int(delay)
         D = self.delay
@@ -234,20 +274,30 @@ class ArbitraryConverter(_Streaming):
         table = table[:, used[0]:used[-1] + 1]
         self._i = i[used[0]:used[-1] + 1]
         self._table = table.astype(dtype)
+        self._table_asc = np.ascontiguousarray(self._table[:, ::-1])
         self.taps_per_phase = self._table.shape[1]
         self.numtaps = h.size
         self._reach_back = int(self._i[-1])   # inputs down to a - i_max
         self._reach_fwd = int(-self._i[0])    # inputs up to a - i_min
-        self._init_stream(channels, dtype, max(0, self._reach_back))
+        self._whole, self._frac = divmod(self.down, self.up)
+        self._start_num = _exact_position(start, self.up)
+        self.frames_total = None if frames_out is None else int(frames_out)
+        a_first = self._start_num // self.up
+        self._init_stream(channels, dtype, max(0, self._reach_back - min(0, a_first)))
 
     def _reset_position(self):
         self._n = 0
 
+    def _position_num(self, n):
+        return self._start_num + n * self.down
+
     def _positions(self, n0, count):
-        n = np.arange(n0, n0 + count, dtype=np.int64)
-        num = n * self.down
-        a = num // self.up
-        rem = num - a * self.up
+        base = self._position_num(n0)
+        a0, rem0 = divmod(base, self.up)
+        k = np.arange(count, dtype=np.int64)
+        t = rem0 + k * self._frac           # < 2**40 + 2**18 * 2**40: fits int64
+        a = a0 + k * self._whole + t // self.up
+        rem = t % self.up
         scaled = rem * self.phases
         p = scaled // self.up
         eta = (scaled - p * self.up).astype(np.float64) / self.up
@@ -255,26 +305,29 @@ class ArbitraryConverter(_Streaming):
 
     def _ready(self):
         end = self._buf_start + self._buf.shape[1]
-        # output n is ready when a_n + reach_fwd < end, a_n = floor(n*down/up)
+        # output n is ready when a_n + reach_fwd < end, a_n = floor(position_num(n) / up)
         last_a = end - 1 - self._reach_fwd
-        if last_a < 0:
-            return 0
-        n_max = ((last_a + 1) * self.up - 1) // self.down   # largest n with a_n <= last_a
-        return max(0, n_max + 1 - self._n)
+        n_max = ((last_a + 1) * self.up - self._start_num - 1) // self.down
+        count = max(0, n_max + 1 - self._n)
+        if self.frames_total is not None:
+            count = min(count, self.frames_total - self._n)
+        return max(0, count)
 
     def _run(self, count):
         C = self.channels
         out = np.empty((C, count), dtype=self.dtype)
         width = self._table.shape[1]
-        step = max(1, (1 << 18) // (width * C))
-        rev = -self._i  # input offsets relative to a
+        step = max(1, min(1 << 18, (1 << 18) // (width * C)))
+        # windows as rows of a sliding view, inputs ascending from a - i_max; the table is
+        # stored in that order (column j holds offset i_max - j), so no per-output reversal
+        table = self._table_asc
+        windows = np.lib.stride_tricks.sliding_window_view(self._buf, width, axis=1)
         for s in range(0, count, step):
             n = min(step, count - s)
             a, p, eta = self._positions(self._n + s, n)
-            coef = self._table[p] * (1 - eta)[:, None].astype(self.dtype) \
-                + self._table[p + 1] * eta[:, None].astype(self.dtype)
-            idx = (a - self._buf_start)[:, None] + rev[None, :]
-            win = self._buf[:, idx]                       # C x n x width
+            coef = table[p] * (1 - eta)[:, None].astype(self.dtype) \
+                + table[p + 1] * eta[:, None].astype(self.dtype)
+            win = windows[:, a - self._buf_start - self._reach_back]   # C x n x width
             out[:, s:s + n] = np.einsum("cnk,nk->cn", win, coef, optimize=False)
         self._n += count
         return out.T
@@ -283,23 +336,55 @@ class ArbitraryConverter(_Streaming):
         x = _as_block(block, self.channels, self.dtype)
         self._append(x)
         count = self._ready()
-        if count == 0:
-            return np.empty((0, self.channels), dtype=self.dtype)
-        y = self._run(count)
-        a_next = (self._n * self.down) // self.up
-        self._drop_before(a_next - self._reach_back)
+        y = self._run(count) if count else np.empty((0, self.channels), dtype=self.dtype)
+        # input before the next output's reach is never needed again (a late start or a large
+        # step may put that beyond what has arrived: drop no further than the end)
+        end = self._buf_start + self._buf.shape[1]
+        self._drop_before(min(end, self._position_num(self._n) // self.up - self._reach_back))
         return self._emit(y)
+
+    def flush(self):
+        """Return the remaining output frames (up to ``frames_out`` when it was given)."""
+        if self.frames_total is None:
+            total = max(0, -(-(self.frames_in * self.up - self._start_num) // self.down))
+        else:
+            total = self.frames_total
+        out = self._finish(total - self.frames_out)
+        self._flushed = True
+        return self._emit(out, total)
 
     def _finish(self, need):
         if need <= 0:
             return np.empty((0, self.channels), dtype=self.dtype)
-        a_last = ((self._n + need - 1) * self.down) // self.up
+        a_last = self._position_num(self._n + need - 1) // self.up
         end_needed = a_last + self._reach_fwd + 1
         end = self._buf_start + self._buf.shape[1]
         if end_needed > end:
             pad = np.zeros((self.channels, end_needed - end), dtype=self.dtype)
             self._buf = np.concatenate([self._buf, pad], axis=1)
         return self._run(need)
+
+
+def _exact_position(value, denominator):
+    """``value`` (input frames: int, Fraction or float) as the nearest multiple of
+    1/denominator, returned as that multiple's integer numerator."""
+    return round(Fraction(value) * denominator)
+
+
+def real_ratio(value, *, max_denominator=_MAX_DENOMINATOR - 1):
+    """A real ratio (output frames per input frame) as an exact (up, down) pair.
+
+    The closest fraction with ``up`` below 2**40 (continued fractions, Fraction.limit_denominator)
+    differs from ``value`` by less than 1e-12 relative, i.e. under a thousandth of a frame after
+    a billion frames; the converter then tracks positions exactly for that fraction.
+    """
+    if isinstance(value, bool) or not isinstance(value, (numbers.Real, Fraction)) \
+            or not math.isfinite(value) or value <= 0:
+        raise ParameterError(f"a conversion ratio must be a positive finite number, got {value!r}",
+                             "ratio")
+    # the position's denominator is up, the denominator of the step down/up: limit that one
+    step = (1 / Fraction(value)).limit_denominator(max_denominator)
+    return step.denominator, step.numerator
 
 
 class CascadeConverter(_Output):
@@ -336,9 +421,25 @@ class CascadeConverter(_Output):
         return self._emit(x, total)
 
 
-def make_converter(design, *, channels=1, dtype=None):
-    """A converter for a :class:`~webapp.dsp.design.Design` or a multistage plan."""
+def make_converter(design, *, channels=1, dtype=None, time_base=None):
+    """A converter for a :class:`~webapp.dsp.design.Design` or a multistage plan.
+
+    With ``time_base`` (a :class:`~webapp.dsp.timebase.TimeBase`, or anything with ``up``,
+    ``down``, ``start_frames`` and ``frames_out``), the design must be on the arbitrary path; the
+    converter then runs at the time base's real ratio and start instead of the design's route.
+    """
     stages = getattr(design, "stages", None)   # a Plan (one or more stages) or a Design
+    if time_base is not None:
+        if stages is not None and len(stages) == 1:
+            design, stages = stages[0], None
+        if stages is not None or design.path != "arbitrary":
+            raise ParameterError("a time base needs a single-stage design on the arbitrary-ratio "
+                                 f"path, got {getattr(design, 'path', 'a multistage plan')}",
+                                 "time_base")
+        return ArbitraryConverter(design.taps, time_base.up, time_base.down, design.phases,
+                                  channels=channels, dtype=dtype or design.spec.arithmetic,
+                                  delay=design.delay_samples, start=time_base.start_frames,
+                                  frames_out=time_base.frames_out)
     if stages is not None:
         if len(stages) == 1:
             return make_converter(stages[0], channels=channels, dtype=dtype)

@@ -20,7 +20,7 @@ import math
 
 import numpy as np
 
-from .design import Design, design, kaiser_numtaps, require_met, _meets, Measured
+from .design import Design, RouteOfMask, design, kaiser_numtaps, require_met, _meets, Measured
 from .errors import ParameterError
 from .rates import route as make_route
 
@@ -30,7 +30,7 @@ MAX_CANDIDATES = 6
 
 
 @dataclass(frozen=True, eq=False)
-class Plan:
+class Plan(RouteOfMask):
     """What a conversion runs: one or more single-stage designs that together convert fs_in to
     fs_out. A single-stage design is a one-stage plan (:meth:`single`); every caller holds a
     Plan, whatever the number of stages.
@@ -76,22 +76,6 @@ class Plan:
     def design(self):
         """The single stage's design (for plots of one filter); the first stage otherwise."""
         return self.stages[0]
-
-    @property
-    def fs_in(self):
-        return self.mask.fs_in
-
-    @property
-    def fs_out(self):
-        return self.mask.fs_out
-
-    @property
-    def up(self):
-        return self.mask.up
-
-    @property
-    def down(self):
-        return self.mask.down
 
     @property
     def label(self):

@@ -7,8 +7,8 @@ Config (``app.config``; defaults below, ``instance/config.py`` or ``test_config`
 ``SERVER_PORT``         the port the Host header must carry (None: no port, as the test client).
 ``PAGE_TOKEN``          per-start token state-changing requests must send (generated).
 ``LOAD_DEMO``           register the demo recording at start-up (default True).
-``DEMO_MEDIA``          folder of demo recordings (default ``demo_media/`` of the source tree).
-``STATIC_FOLDER``       the page's files (default ``static/`` of the source tree).
+``DEMO_MEDIA``          folder of demo recordings (default: :data:`webapp.assets.DEMO_MEDIA_FOLDER`).
+``STATIC_FOLDER``       the page's files (default: :data:`webapp.assets.STATIC_FOLDER`).
 ``WORKERS``             conversions that run at once (default 2).
 ``DESIGN_CACHE_SIZE``   designs kept in memory (default 24).
 ``EXCERPT_MAX_S``       longest listening rendition / spectrum excerpt (default 60 s).
@@ -27,6 +27,7 @@ import threading
 from flask import Flask
 
 from webapp import __version__
+from webapp.assets import DEMO_MEDIA_FOLDER, STATIC_FOLDER
 from webapp.store import ConversionPool, Store, default_instance_path
 
 __all__ = ["create_app", "State", "DEFAULT_MAX_CONTENT_LENGTH", "SOURCE_ROOT"]
@@ -107,8 +108,7 @@ def create_app(test_config=None, *, instance_path=None):
     test_config = dict(test_config or {}) if test_config is not None else None
     instance_path = os.path.abspath(instance_path or (test_config or {}).get("INSTANCE_PATH")
                                     or default_instance_path())
-    static_folder = (test_config or {}).get("STATIC_FOLDER") or os.path.join(SOURCE_ROOT,
-                                                                             "static")
+    static_folder = (test_config or {}).get("STATIC_FOLDER") or STATIC_FOLDER
     app = Flask(__name__, instance_path=instance_path, instance_relative_config=True,
                 static_folder=static_folder, static_url_path="/static")
     app.config.from_mapping(
@@ -116,7 +116,7 @@ def create_app(test_config=None, *, instance_path=None):
         SERVER_PORT=None,
         PAGE_TOKEN=secrets.token_urlsafe(32),
         LOAD_DEMO=True,
-        DEMO_MEDIA=os.path.join(SOURCE_ROOT, "demo_media"),
+        DEMO_MEDIA=DEMO_MEDIA_FOLDER,
         STATIC_FOLDER=static_folder,
         PLOTLY_JS=_plotly_js(),
         WORKERS=2,

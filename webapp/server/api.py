@@ -19,7 +19,7 @@ from webapp import jobs
 
 from webapp import figures, listening
 from webapp.designs import PLAYBACK_PRESET, design_estimate, design_key
-from webapp.recipe import recipe_file_name
+from webapp.recipe import load_recipe, recipe_file_name
 from .db import get_db, state
 from .errors import ApiError
 from .library import measure, probe_figures
@@ -413,6 +413,20 @@ def _public_conversion(conv, *, figures=True):
     return out
 
 
+def _recipe_job(data, rec, target_for):
+    """(job, design inputs) of a recipe re-run: the recipe's spec, rate, delivery, block size
+    and output format; the recording must be the recipe's source (checked before any work)."""
+    recipe = load_recipe(data["recipe"])
+    ext = os.path.splitext(recipe.data["output"]["name"])[1].lower()
+    if ext not in OUTPUT_FORMAT_EXTENSIONS.values():
+        raise ParameterError(f"recipe output {recipe.data['output']['name']!r} is not a format "
+                             "the page writes", "recipe")
+    fmt = next(k for k, v in OUTPUT_FORMAT_EXTENSIONS.items() if v == ext)
+    plan = state().cache.conversion_plan(recipe.spec, recipe.fs_in, recipe.fs_out)
+    job = jobs.prepare_rerun(recipe, rec["path"], target_for(ext), plan=plan)
+    return recipe, job, fmt
+
+
 @bp.post("/conversions")
 def create_conversion():
     data = json_body()
@@ -420,24 +434,32 @@ def create_conversion():
     if rec.get("analysis") == "failed":
         err = rec.get("analysis_error") or {}
         raise ParameterError(err.get("message", "the recording can't be read"), "recording_id")
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
-    fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default=DEFAULT_FORMAT)
-    ext = OUTPUT_FORMAT_EXTENSIONS[fmt]
-    delivery = Delivery.from_dict(data.get("delivery"))
     st = state()
-    plan = st.cache.conversion_plan(spec, fs_in, fs_out)
-    if design_id is None:
-        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
     cid = new_id()
-    job = jobs.prepare(rec["path"], st.store.output_path(cid, ext), fs_out=fs_out, spec=spec,
-                       delivery=delivery, plan=plan)
+    recipe = None
+    if data.get("recipe") is not None:
+        recipe, job, fmt = _recipe_job(data, rec, lambda ext: st.store.output_path(cid, ext))
+        spec, delivery = recipe.spec, recipe.delivery
+        design_id = _store_design(spec, job.fs_in, job.fs_out, job.plan.figures())
+    else:
+        spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
+        fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default=DEFAULT_FORMAT)
+        delivery = Delivery.from_dict(data.get("delivery"))
+        plan = st.cache.conversion_plan(spec, fs_in, fs_out)
+        if design_id is None:
+            design_id = _store_design(spec, fs_in, fs_out, plan.figures())
+        job = jobs.prepare(rec["path"], st.store.output_path(cid, OUTPUT_FORMAT_EXTENSIONS[fmt]),
+                           fs_out=fs_out, spec=spec, delivery=delivery, plan=plan)
     conv = get_db().add_conversion(
-        conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=fs_in,
-        fs_out=fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
+        conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=job.fs_in,
+        fs_out=job.fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
         output_path=job.target, download_name=job.download_name(_stem(rec["name"])),
         frames_total=job.frames_total)
 
     def run(progress, cancel):
+        if recipe is not None:
+            return jobs.rerun(recipe, job.source, job.target, progress=progress, cancel=cancel,
+                              job=job).result
         return jobs.run(job, progress=progress, cancel=cancel)
 
     st.pool.submit(cid, run)
@@ -649,7 +671,6 @@ def upload_recipe():
         body = _file_field().stream.read(4 << 20)
     finally:
         discard_incoming(request)
-    from webapp.recipe import load_recipe
     recipe = load_recipe(body)
     return _json(dict(spec=recipe.spec.to_dict(), fs_in=recipe.fs_in, fs_out=recipe.fs_out,
                       delivery=recipe.delivery.to_dict(), block_frames=recipe.block_frames,

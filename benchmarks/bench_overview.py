@@ -1,7 +1,7 @@
 """Time the overview of a long recording (webapp.overview) against reading the same file alone.
 
-    python scripts/bench_overview.py            # 60 minutes of stereo 44.1 kHz, 16-bit WAV
-    python scripts/bench_overview.py --minutes 5
+    python benchmarks/bench_overview.py            # 60 minutes of stereo 44.1 kHz, 16-bit WAV
+    python benchmarks/bench_overview.py --minutes 5
 
 The file is programme-like (a slow sine chord with noise, one clipped stretch) and written to a
 temporary folder, then removed. Figures printed side by side: the overview's time, and the
@@ -11,6 +11,7 @@ analysis pays), plus the peak memory of the overview (tracemalloc).
 
 import argparse
 import os
+import sys
 import tempfile
 import time
 import tracemalloc
@@ -18,8 +19,10 @@ import tracemalloc
 import numpy as np
 import soundfile as sf
 
-from webapp import media
-from webapp.overview import overview
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+
+from webapp import media  # noqa: E402
+from webapp.overview import overview  # noqa: E402
 
 
 def make(path, minutes, rate=44100):
@@ -35,14 +38,15 @@ def make(path, minutes, rate=44100):
             f.write(np.column_stack([x, 0.8 * x]))
 
 
-def main():
+def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--minutes", type=int, default=60)
     ap.add_argument("--columns", type=int, default=1200)
-    args = ap.parse_args()
+    args = ap.parse_args(argv)
     with tempfile.TemporaryDirectory() as folder:
         path = os.path.join(folder, "long.wav")
         make(path, args.minutes)
+        size_mb = os.path.getsize(path) / 1e6
         t0 = time.perf_counter()
         for _ in media.read_blocks(path, blocksize=1 << 17):
             pass
@@ -53,13 +57,19 @@ def main():
         ov_s = time.perf_counter() - t0
         peak = tracemalloc.get_traced_memory()[1]
         tracemalloc.stop()
-        print(f"{args.minutes} min stereo 44.1 kHz 16-bit WAV ({os.path.getsize(path) / 1e6:.0f} MB), "
-              f"{args.columns} columns")
-        print(f"  overview      {ov_s:7.2f} s   ({args.minutes * 60 / ov_s:6.0f} x real time), "
-              f"peak traced memory {peak / 1e6:.1f} MB")
-        print(f"  reference     {read_s:7.2f} s   (read_blocks alone)")
-        print(f"  full scale {o['full_scale']['total']} samples, overs {o['overs']['total']}")
+    label = f"overview of {args.minutes} min stereo 44.1 kHz WAV ({size_mb:.0f} MB)"
+    return dict(
+        title="the overview of a long recording beside reading it",
+        figures=[dict(name=label, value=round(ov_s, 2), unit="s",
+                      reference="webapp.media.read_blocks alone", reference_value=round(read_s, 2)),
+                 dict(name="overview peak traced memory", value=round(peak / 1e6, 1), unit="MB")],
+        realtime_factor=round(args.minutes * 60 / ov_s), full_scale=o["full_scale"]["total"],
+        overs=o["overs"]["total"], columns=args.columns)
 
 
 if __name__ == "__main__":
-    main()
+    r = main()
+    for f in r["figures"]:
+        ref = f" (reference: {f['reference']} {f['reference_value']} {f['unit']})" if "reference" in f else ""
+        print(f"{f['name']}: {f['value']} {f['unit']}{ref}")
+    print(f"real-time factor {r['realtime_factor']}, full scale {r['full_scale']}, overs {r['overs']}")

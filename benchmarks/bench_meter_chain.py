@@ -1,6 +1,7 @@
 """Seconds per minute of stereo 48 kHz audio for the meters and the quantiser, beside plain scipy.
 
-Run: ``python scripts/bench_meters.py [--seconds 60] [--block 65536]``.
+Run: ``python benchmarks/bench_meter_chain.py [--seconds 60] [--block 65536]`` (the runner,
+``python -m benchmarks``, takes its figures from ``main()``).
 
 The plain versions are what one would write without streaming: K-weighting the whole array
 with scipy.signal.sosfilt and averaging 400 ms blocks; over-sampling the whole array with
@@ -67,34 +68,44 @@ def plain_true_peak(x):
     return lambda: np.abs(signal.upfirdn(prototype, x, 4, axis=0)).max(axis=0)
 
 
-def main():
+def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seconds", type=float, default=60.0)
     parser.add_argument("--block", type=int, default=65536)
-    args = parser.parse_args()
+    args = parser.parse_args(argv)
     rng = np.random.default_rng(1)
     x = programme(args.seconds, rng)
     sine = np.repeat(0.9 * np.sin(2 * np.pi * 997 * np.arange(x.shape[0]) / RATE_HZ)[:, None], 2, axis=1)
     per_minute = 60.0 / args.seconds          # seconds of work -> seconds per minute of audio
+    loud = best_of(3, streamed(LoudnessMeter, x, args.block)) * per_minute
+    loud_plain = best_of(3, plain_loudness(x)) * per_minute
+    peak_plain = best_of(3, plain_true_peak(x)) * per_minute
     rows = [
-        ("loudness meter (streamed)", best_of(3, streamed(LoudnessMeter, x, args.block)) * per_minute),
-        ("loudness, plain sosfilt on the whole array", best_of(3, plain_loudness(x)) * per_minute),
-        ("true-peak meter, programme-like noise",
-         best_of(3, streamed(TruePeakMeter, x, args.block)) * per_minute),
-        ("true-peak meter, full-scale sine (no row skipped)",
-         best_of(3, streamed(TruePeakMeter, sine, args.block)) * per_minute),
-        ("true peak, plain upfirdn 4x on the whole array", best_of(3, plain_true_peak(x)) * per_minute),
+        dict(name="loudness meter (streamed)", value=loud, unit="s/min",
+             reference="plain sosfilt on the whole array", reference_value=loud_plain),
+        dict(name="true-peak meter, programme-like noise",
+             value=best_of(3, streamed(TruePeakMeter, x, args.block)) * per_minute, unit="s/min",
+             reference="plain upfirdn 4x on the whole array", reference_value=peak_plain),
+        dict(name="true-peak meter, full-scale sine (no row skipped)",
+             value=best_of(3, streamed(TruePeakMeter, sine, args.block)) * per_minute,
+             unit="s/min", reference="plain upfirdn 4x on the whole array",
+             reference_value=peak_plain),
     ]
     # the shaped quantiser is a per-sample loop: time 5 s of audio and scale
     short = x[: int(RATE_HZ * min(args.seconds, 5.0))]
     for dither in ("tpdf", "shaped"):
         quantizer = Quantizer(bits="16", dither=dither, channels=2, rate_hz=RATE_HZ)
         seconds = best_of(1, lambda q=quantizer: q.process(short))
-        rows.append((f"16-bit quantiser, dither={dither}", seconds * 60.0 * RATE_HZ / short.shape[0]))
-    print(f"stereo {RATE_HZ} Hz, {args.seconds:g} s of audio, blocks of {args.block} frames")
-    print(f"{'':52s}  s per minute of audio")
-    for name, seconds_per_minute in rows:
-        print(f"{name:52s}  {seconds_per_minute:8.3f}")
+        rows.append(dict(name=f"16-bit quantiser, dither={dither}",
+                         value=seconds * 60.0 * RATE_HZ / short.shape[0], unit="s/min"))
+    return dict(title=f"meters and quantiser, stereo {RATE_HZ} Hz, {args.seconds:g} s of audio, "
+                      f"blocks of {args.block} frames, seconds per minute of audio",
+                figures=rows)
+
 
 if __name__ == "__main__":
-    main()
+    result = main()
+    print(result["title"])
+    for r in result["figures"]:
+        ref = f"   | {r['reference']}: {r['reference_value']:.3f}" if "reference" in r else ""
+        print(f"{r['name']:52s}  {r['value']:8.3f}{ref}")

@@ -1,6 +1,6 @@
 """Time the artefact audit on a few routes, beside scipy.signal doing its conversion step.
 
-    python scripts/bench_audit.py [--repeat N]
+    python benchmarks/bench_audit.py [--repeat N]
 
 For each route: the design time, the whole audit (best of N), and the conversion step inside it
 (every test signal as one channel of one converter call) timed for our streaming converter and
@@ -67,11 +67,12 @@ def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeat", type=int, default=3)
     args = ap.parse_args(argv)
-    print(f"{'route':40s} {'design s':>9s} {'audit s':>8s} {'convert s':>10s} "
-          f"{'upfirdn s':>10s} {'ratio':>6s} {'max diff':>9s} {'passes':>6s}")
+    rows = []
     for name, fs_in, fs_out, stages in ROUTES:
         spec = replace(preset(name), stages=stages)
         t_design, d = best(lambda: choose_plan(spec, fs_in, fs_out), 1)
+        if len(getattr(d, "stages", ())) == 1:      # a one-stage plan is its design
+            d = d.stages[0]
         t_audit, r = best(lambda: audit(d), args.repeat)
         # the conversion step with the audit's channel count and length
         span = settle_time_s(d)
@@ -79,17 +80,35 @@ def main(argv=None):
         channels = 5 + int(np.ceil(r.deviation_hz.size / 149)) + 2
         x = np.random.default_rng(1).standard_normal((n_in, channels)) * 0.1
         t_ours, y = best(lambda: convert_channels(d, x), args.repeat)
-        single = not hasattr(d, "stages") and d.path == "polyphase"
-        if single:
+        row = dict(route=f"{name} {fs_in}->{fs_out}" + (" (plan)" if hasattr(d, "stages") else ""),
+                   design_s=t_design, audit_s=t_audit, convert_s=t_ours, passes=bool(r.passes))
+        if not hasattr(d, "stages") and d.path == "polyphase":
             t_ref, y_ref = best(lambda: upfirdn_aligned(d, x), args.repeat)
-            diff = float(np.max(np.abs(y - y_ref)))
-            ref_txt, ratio, diff_txt = f"{t_ref:10.3f}", f"{t_ref / t_ours:6.1f}", f"{diff:9.1e}"
+            row.update(upfirdn_s=t_ref, max_diff=float(np.max(np.abs(y - y_ref))))
+        rows.append(row)
+    figures = []
+    for row in rows:
+        figures.append(dict(name=f"{row['route']} audit", value=row["audit_s"], unit="s"))
+        fig = dict(name=f"{row['route']} conversion step", value=row["convert_s"], unit="s")
+        if "upfirdn_s" in row:
+            fig.update(reference="scipy.signal.upfirdn", reference_value=row["upfirdn_s"],
+                       ratio=round(row["upfirdn_s"] / row["convert_s"], 1))
+        figures.append(fig)
+    return dict(title="artefact audit per design; its conversion step beside upfirdn",
+                figures=figures, routes=rows)
+
+
+def print_table(result):
+    print(f"{'route':40s} {'design s':>9s} {'audit s':>8s} {'convert s':>10s} "
+          f"{'upfirdn s':>10s} {'ratio':>6s} {'max diff':>9s} {'passes':>6s}")
+    for r in result["routes"]:
+        if "upfirdn_s" in r:
+            ref = f"{r['upfirdn_s']:10.3f} {r['upfirdn_s'] / r['convert_s']:6.1f} {r['max_diff']:9.1e}"
         else:
-            ref_txt, ratio, diff_txt = "       n/a", "   n/a", "      n/a"
-        label = f"{name} {fs_in}->{fs_out}" + (" (plan)" if hasattr(d, "stages") else "")
-        print(f"{label:40s} {t_design:9.3f} {t_audit:8.3f} {t_ours:10.3f} {ref_txt} {ratio} "
-              f"{diff_txt} {str(r.passes):>6s}")
+            ref = "       n/a    n/a       n/a"
+        print(f"{r['route']:40s} {r['design_s']:9.3f} {r['audit_s']:8.3f} {r['convert_s']:10.3f} "
+              f"{ref} {str(r['passes']):>6s}")
 
 
 if __name__ == "__main__":
-    main()
+    print_table(main())
