@@ -1,4 +1,4 @@
-"""The `rateferry` command: design, convert, audit, plans, serve, clean.
+"""The `rateferry` command: design, convert, batch, audit, plans, serve, clean.
 
 Bad input ends with one line, ``rateferry: error: <rule and value>``, exit code 2, nothing written.
 Every command takes ``--quiet`` (no progress and no detail: only the line that states the
@@ -17,17 +17,22 @@ from . import __version__
 from .dsp.dither import DITHERS, WORD_LENGTHS
 from .dsp.errors import RateferryError
 from .dsp.spec import PRESETS, DEFAULT_PRESET, preset, preset_bits, spec_from_dict
+from .cli_args import OneLineParser, number_arg, rate_arg, whole_arg
 from .jsontools import jsonable
 
 EXIT_BAD_INPUT = 2
 
 SPEC_OPTIONS = [
     # flag, spec field, type, help
-    ("--passband", "passband_hz", float, "passband edge in Hz (default: a fraction of the lower Nyquist)"),
-    ("--passband-fraction", "passband_fraction", float, "passband edge as a fraction of the lower Nyquist"),
-    ("--stopband", "stopband_hz", float, "stopband edge in Hz (default: the lower Nyquist)"),
-    ("--ripple", "ripple_db", float, "largest passband deviation, +- dB"),
-    ("--attenuation", "attenuation_db", float, "smallest stopband rejection, dB"),
+    ("--passband", "passband_hz", number_arg("--passband", unit="Hz"),
+     "passband edge in Hz (default: a fraction of the lower Nyquist)"),
+    ("--passband-fraction", "passband_fraction", number_arg("--passband-fraction"),
+     "passband edge as a fraction of the lower Nyquist"),
+    ("--stopband", "stopband_hz", number_arg("--stopband", unit="Hz"),
+     "stopband edge in Hz (default: the lower Nyquist)"),
+    ("--ripple", "ripple_db", number_arg("--ripple", unit="dB"), "largest passband deviation, +- dB"),
+    ("--attenuation", "attenuation_db", number_arg("--attenuation", unit="dB"),
+     "smallest stopband rejection, dB"),
     ("--phase", "phase", str, "linear | minimum"),
     ("--method", "method", str, "auto | kaiser | equiripple | least-squares"),
     ("--arithmetic", "arithmetic", str, "float32 | float64"),
@@ -175,6 +180,24 @@ def cmd_plans(args):
     return 0
 
 
+def _add_delivery_options(p):
+    p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
+                   help="output word length (default: the preset's if it states one, as "
+                        "spoken_word_delivery does (16), else like the source)")
+    p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
+                   help="dither for 16/24-bit outputs (default tpdf)")
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0,
+                   help="dither seed (default 0)")
+    p.add_argument("--ceiling", type=number_arg("--ceiling", low=-60.0, high=0.0, unit="dBTP"),
+                   default=None,
+                   help="true-peak ceiling in dBTP (gain applied to stay under it)")
+    p.add_argument("--loudness", type=number_arg("--loudness", low=-70.0, high=0.0, unit="LUFS"),
+                   default=None,
+                   help="integrated loudness target in LUFS")
+    p.add_argument("--block-frames", type=whole_arg("--block-frames", low=1, high=2**24),
+                   default=65536, help="frames per block read")
+
+
 def _delivery_from_args(args):
     """The delivery the options ask for; without --bits, the preset's word length if it
     states one (spoken word: 16 bit), else like the source."""
@@ -200,9 +223,10 @@ def _prepare_convert(args):
 
 
 def cmd_convert(args):
-    from . import jobs
+    from . import jobs, partials
     from .report import convert_report
     recipe, job = _prepare_convert(args)
+    partials.sweep(os.path.dirname(os.path.abspath(args.output)))   # a crashed run's leftovers
     bar = Progress(os.path.basename(args.input),
                    enabled=not (args.quiet or args.silent or args.json))
     try:
@@ -222,6 +246,8 @@ def cmd_convert(args):
         from . import sheet
         sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
                           note=args.note)
+    for warning in result.warnings:
+        sys.stderr.write(f"rateferry: warning: {warning}\n")
     report = convert_report(result, rerun=check)
     if args.json:
         _print_json(report)
@@ -247,6 +273,40 @@ def _print_convert(args, r):
     if "recipe" in r and r["recipe"]["reproduces"]:
         _say(args, "output is byte-identical to the recipe's (same sha256), and every recorded "
                    "figure was reproduced")
+
+
+def cmd_batch(args):
+    from . import batch
+    from .batch.cluster import scheduler_address
+    from .batch.inputs import check_pattern
+    from .batch.prepare import Settings
+    recipe = None
+    if args.recipe:
+        from .recipe import load_recipe
+        recipe = load_recipe(args.recipe)
+    settings = Settings(out_dir=args.out, fs_out=args.fs_out, spec=spec_from_args(args),
+                        delivery=_delivery_from_args(args), block_frames=args.block_frames,
+                        format=f".{args.format}" if args.format else None,
+                        name_pattern=check_pattern(args.names), recipe=recipe)
+    options = batch.BatchOptions(
+        inputs=tuple(args.inputs), settings=settings,
+        scheduler=scheduler_address(args.scheduler), workers=args.workers,
+        replace=args.replace, progress_line=not (args.quiet or args.silent or args.json),
+        json_events=args.json, sheet=not args.no_sheet)
+    try:
+        outcome = batch.run_batch(options)
+    except KeyboardInterrupt:
+        sys.stderr.write("\nrateferry: batch interrupted; finished files are kept and recorded "
+                         "in the ledger: run the same command again to go on\n")
+        from .batch.run import EXIT_INTERRUPTED
+        return EXIT_INTERRUPTED
+    if not args.json:
+        c = outcome.counts
+        _say(args, f"batch: {c['done']} converted, {c['skipped']} already done, {c['failed']} "
+              f"failed ({outcome.cluster or 'no conversion needed'}); report "
+              f"{outcome.reports['csv']}" + (f", sheet {outcome.reports['sheet']}"
+                                             if "sheet" in outcome.reports else ""))
+    return outcome.exit_code
 
 
 def cmd_audit(args):
@@ -306,26 +366,18 @@ def _common():
 
 
 def _rates(p):
-    p.add_argument("--from", dest="fs_in", type=int, required=True, help="source rate, Hz")
-    p.add_argument("--to", dest="fs_out", type=int, required=True, help="target rate, Hz")
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True,
+                   help="source rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True,
+                   help="target rate, Hz")
 
 
 def _convert_options(p):
     p.add_argument("input")
     p.add_argument("output")
-    p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), help="target rate, Hz")
     _add_spec_options(p)
-    p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
-                   help="output word length (default: the preset's if it states one, as "
-                        "spoken_word_delivery does (16), else like the source)")
-    p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
-                   help="dither for 16/24-bit outputs (default tpdf)")
-    p.add_argument("--seed", type=int, default=0, help="dither seed (default 0)")
-    p.add_argument("--ceiling", type=float, default=None,
-                   help="true-peak ceiling in dBTP (gain applied to stay under it)")
-    p.add_argument("--loudness", type=float, default=None,
-                   help="integrated loudness target in LUFS")
-    p.add_argument("--block-frames", type=int, default=65536, help="frames per block read")
+    _add_delivery_options(p)
     p.add_argument("--recipe", help="re-run a recipe (JSON); spec and delivery come from it")
     p.add_argument("--write-recipe", help="save the recipe of this conversion (JSON)")
     p.add_argument("--sheet", help="write a design sheet (self-contained HTML)")
@@ -338,8 +390,8 @@ def _convert_options(p):
 
 
 def build_parser():
-    ap = argparse.ArgumentParser(prog="rateferry",
-                                 description="Sample-rate conversion with a verified filter.")
+    ap = OneLineParser(prog="rateferry",
+                       description="Sample-rate conversion with a verified filter.")
     ap.add_argument("--version", action="version", version=f"rateferry {__version__}")
     sub = ap.add_subparsers(dest="command", required=True)
     common = [_common()]
@@ -361,18 +413,20 @@ def build_parser():
     _convert_options(p)
     p.set_defaults(func=cmd_convert)
 
+    _add_batch_parser(sub, common)
+
     p = sub.add_parser("audit", parents=common,
                        help="measure the converter on standard test signals")
     _rates(p)
     _add_spec_options(p)
     p.add_argument("--dither", choices=list(DITHERS), default="none")
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_audit)
 
     p = sub.add_parser("serve", parents=common, help="run the local web app")
     p.add_argument("--host", default="127.0.0.1")
-    p.add_argument("--port", type=int, default=8765)
+    p.add_argument("--port", type=whole_arg("--port", low=1, high=65535), default=8765)
     p.add_argument("--no-browser", action="store_true")
     p.add_argument("--debug", action="store_true", help="Flask's development server")
     p.add_argument("--instance", default=None, help="instance folder (data, database)")
@@ -381,14 +435,56 @@ def build_parser():
     p = sub.add_parser("clean", parents=common,
                        help="remove old uploads and outputs from the instance folder")
     p.add_argument("--instance", default=None)
-    p.add_argument("--days", type=float, default=7.0)
+    p.add_argument("--days", type=number_arg("--days", low=0.0, high=36500.0, unit="days"),
+                   default=7.0)
     p.set_defaults(func=cmd_clean)
     return ap
 
 
+BATCH_EPILOG = """exit status: 0 every file done (now or in an earlier run); 2 bad input found
+before any work (nothing converted); 4 some files failed (the others are done; see the report);
+130 interrupted (run the same command again to go on).
+name pattern parts: {stem} {parent} {rate} (16k, 44k1) {hz} (16000) {bits} (16bit, 24bit,
+32float, 64float) {format} (wav, flac); default: {stem}_{rate}_{bits}.<source format>."""
+
+
+def _add_batch_parser(sub, common):
+    from .media import OUTPUT_FORMATS
+    p = sub.add_parser("batch", help="convert many files (Dask: this machine or a cluster)",
+                       epilog=BATCH_EPILOG, parents=common,
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("inputs", nargs="+", metavar="INPUT",
+                   help="audio files, folders (searched recursively) or manifests (.csv, .jsonl)")
+    p.add_argument("--out", required=True, help="output folder (holds the ledger and reports)")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), help="target rate, Hz")
+    _add_spec_options(p)
+    _add_delivery_options(p)
+    p.add_argument("--recipe", help="apply a recipe (JSON) to every file: a template, or an "
+                   "exact re-run for its own source")
+    p.add_argument("--format", choices=sorted(e.lstrip(".") for e in OUTPUT_FORMATS),
+                   help="output format (default: the source's)")
+    p.add_argument("--names", metavar="PATTERN", default=None,
+                   help="output file-name pattern, e.g. '{stem}_{rate}.{format}'")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="run on this Dask scheduler (default: $RATEFERRY_SCHEDULER, else a "
+                        "local cluster)")
+    p.add_argument("--workers", type=whole_arg("--workers", low=1, high=4096), default=None,
+                   help="worker processes of the local cluster (default: one per core)")
+    p.add_argument("--replace", action="store_true",
+                   help="replace outputs that this batch did not make")
+    p.add_argument("--no-sheet", action="store_true", help="skip the batch sheet (HTML)")
+    p.add_argument("--json", action="store_true", help="JSON-lines events on stdout")
+    p.set_defaults(func=cmd_batch)
+
+
 def main(argv=None):
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:   # a bad option (one line already written), --help, --version
+        return exc.code
+    from . import partials
+    partials.sweep_remembered()   # partial files a crashed (kill -9) run left behind
     try:
         return args.func(args)
     except RateferryError as exc:

@@ -95,6 +95,10 @@ export const blindTrials = (id) => get(urlFor('blind_trials', { id }));
 export const postBlindTrials = (id, body) => post(urlFor('blind_trials', { id }), body);
 export const rendition = (body, signal) => post(urlFor('renditions'), body, { signal });
 export const clearOld = (days) => post(urlFor('clear'), { older_than_days: days });
+export const startBatch = (body) => post(urlFor('batches'), body);
+export const batch = (id) => get(urlFor('batch', { id }));
+export const batches = () => get(urlFor('batches'));
+export const cancelBatch = (id) => post(urlFor('batch_cancel', { id }), {});
 
 export function uploadRecipe(file) {
   const form = new FormData();

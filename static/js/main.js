@@ -18,6 +18,7 @@ import * as filter from './views/filter.js';
 import * as audit from './views/audit.js';
 import * as listen from './views/listen.js';
 import * as history from './views/history.js';
+import * as batch from './views/batch.js';
 
 const TABS = ['spectra', 'filter', 'audit', 'listen'];
 
@@ -108,6 +109,7 @@ async function boot() {
   result.init(document.getElementById('result-view'), state);
   history.init(document.getElementById('history-view'), state);
   redesign.start(state);
+  batch.init(document.getElementById('batch-view'), state);
   setupTabs(state);
 
   // A new recording keeps the route unless it would convert to its own rate.
