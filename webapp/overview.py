@@ -4,7 +4,7 @@ loudness, and where the samples reach full scale or the true peak goes over (no 
 One streaming pass in blocks (:func:`webapp.media.read_blocks`): memory stays flat whatever the
 duration (the loudness meter keeps one number per 100 ms: 36 000 an hour). The meters are the
 core's: :class:`webapp.dsp.loudness.LoudnessMeter` (BS.1770-4 / EBU Tech 3341 short-term
-loudness), :class:`webapp.dsp.overs.TruePeakOvers` (BS.1770-4 Annex 2 over-sampling).
+loudness), :class:`webapp.dsp.overs.TruePeakOvers` (the true-peak meter's 16x interpolator).
 
 Conventions
 -----------
@@ -99,8 +99,7 @@ def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOL
     low = np.full(n, np.inf)
     high = np.full(n, -np.inf)
     clipped, overs = _Markers(n), _Markers(n)
-    finder = TruePeakOvers(rate_hz=rate, channels=info.channels,
-                           threshold_dbtp=over_threshold_dbtp)
+    finder = TruePeakOvers(channels=info.channels, threshold_dbtp=over_threshold_dbtp)
     loud = LoudnessMeter(rate_hz=rate, channels=info.channels) \
         if rate >= MIN_LOUDNESS_RATE_HZ else None
     pos = 0
@@ -115,11 +114,13 @@ def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOL
         peaks = frame_peaks(block)
         at_fs = np.flatnonzero(full_scale_frames(block, peaks))
         clipped.add(at_fs + pos, col[at_fs])
-        over = finder.process(block, peaks)
-        overs.add(over, col[over - pos])
+        over = finder.process(block)
+        overs.add(over, (over * n) // frames)
         if loud is not None:
             loud.process(block)
         pos += m
+    over = finder.finish()
+    overs.add(over, (over * n) // frames)
     edges = (np.arange(n + 1, dtype=np.int64) * frames) // n
     return dict(
         rate_hz=rate, channels=info.channels, frames=frames, duration_s=frames / rate,

@@ -1,6 +1,6 @@
 """Where the true peak goes over: webapp.dsp.overs against the whole-programme true-peak meter.
 
-Reference: ITU-R BS.1770-4 Annex 2 (the meter, webapp.dsp.loudness.TruePeakMeter, checked in
+Reference: the true-peak meter of ITU-R BS.1770-4 (webapp.dsp.loudness.TruePeakMeter, checked in
 test_loudness.py against the standard's figures): a programme whose meter reading is above a
 threshold has at least one frame over it, and none when the threshold is above the reading;
 the blocks the stream is cut into do not matter.
@@ -19,13 +19,14 @@ def test_overs_agree_with_the_true_peak_meter_and_ignore_block_boundaries():
     reading = true_peak(x, 48000)                       # dBTP of the whole programme
     found = {}
     for block in (48000, 4096, 1001):
-        finder = TruePeakOvers(rate_hz=48000, channels=2, threshold_dbtp=reading - 0.5)
-        frames = np.concatenate([finder.process(x[i:i + block]) for i in range(0, x.shape[0], block)])
+        finder = TruePeakOvers(channels=2, threshold_dbtp=reading - 0.5)
+        parts = [finder.process(x[i:i + block]) for i in range(0, x.shape[0], block)]
+        frames = np.concatenate(parts + [finder.finish()])
         found[block] = frames
     assert found[48000].size >= 1
     assert all(np.array_equal(found[48000], f) for f in found.values())
-    above = TruePeakOvers(rate_hz=48000, channels=2, threshold_dbtp=reading + 0.01)
-    assert above.process(x).size == 0
+    above = TruePeakOvers(channels=2, threshold_dbtp=reading + 0.01)
+    assert above.process(x).size == 0 and above.finish().size == 0
 
 
 def test_full_scale_frames_are_the_clipped_ones():

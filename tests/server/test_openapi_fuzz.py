@@ -117,7 +117,9 @@ def test_every_operation_survives_generated_requests(live_server):
     total = sum(counts.values())
     print(f"\nfuzz: {total} requests over {len(counts)} operations: "
           + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())))
-    assert len(counts) == 28   # every operation of the description was exercised
+    # every operation of the description was exercised
+    assert len(counts) == sum(len([m for m in ops if m in ("get", "post", "put", "delete", "patch")])
+                              for ops in json.load(open(SCHEMA_PATH))["paths"].values())
     assert total >= 300
 
 
