@@ -16,7 +16,7 @@ from .api import (OUTPUT_FORMAT_EXTENSIONS, _json, _prepare_conversion, _public_
                   _queue_conversion, _readable, _stem, _url)
 from .db import get_db, state
 from .errors import ApiError
-from .params import choice, json_body, recording_or_404, spec_input
+from .params import choice, json_body, recording_file_or_410, recording_or_404, spec_input
 
 __all__ = ["bp", "MAX_BATCH_FILES"]
 
@@ -68,7 +68,7 @@ def create_batch():
     prepared = []
     # everything is checked before anything is queued: one bad file refuses the batch
     for rid in ids:
-        rec = _readable(recording_or_404(rid))
+        rec = _readable(recording_file_or_410(recording_or_404(rid)))
         spec, fs_in, fs_out, _ = spec_input(data, fs_in=rec["rate_hz"])
         try:
             cid, job, design_id = _prepare_conversion(rec, spec, fs_in, fs_out, fmt, delivery)
