@@ -14,9 +14,13 @@ from webapp.dsp.polyphase import convert
 from webapp.designs import PLAYBACK_PRESET
 from webapp.figures import MARGIN_S, check_excerpt, read_frames
 
-__all__ = ["make_renditions", "binomial_tail", "RENDITION_MIN_S"]
+__all__ = ["make_renditions", "binomial_tail", "RENDITION_MIN_S", "BLIND_TRIAL_COUNTS",
+           "BLIND_TRIAL_DEFAULT"]
 
 RENDITION_MIN_S = 0.5
+#: Trials a blind session can have; ten is the default (with 9 of 10 right, p = 0.011).
+BLIND_TRIAL_COUNTS = (6, 8, 10, 12, 16, 20)
+BLIND_TRIAL_DEFAULT = 10
 
 
 def binomial_tail(correct, trials):

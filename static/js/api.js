@@ -82,6 +82,8 @@ export const recordings = () => get(urlFor('recordings'));
 export const recording = (id) => get(urlFor('recording', { id }));
 export const deleteRecording = (id) => call('DELETE', urlFor('recording', { id }));
 export const design = (body, signal) => post(urlFor('designs'), body, { signal });
+export const estimate = (body, signal) => post(urlFor('design_estimate'), body, { signal });
+export const overview = (id, columns, signal) => get(`${urlFor('recording_overview', { id })}?columns=${encodeURIComponent(columns)}`, { signal });
 export const designPlans = (id, signal) => get(config.urls.design_plans ? urlFor('design_plans', { id }) : `${urlFor('design', { id })}/plans`, { signal });
 export const audit = (body, signal) => post(urlFor('audits'), body, { signal });
 export const spectra = (body, signal) => post(urlFor('spectra'), body, { signal });
