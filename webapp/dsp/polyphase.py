@@ -275,6 +275,8 @@ class ArbitraryConverter(_Streaming):
         self._i = i[used[0]:used[-1] + 1]
         self._table = table.astype(dtype)
         self._table_asc = np.ascontiguousarray(self._table[:, ::-1])
+        # the step from each phase to the next, so an interpolated filter is one product-add
+        self._step_asc = np.ascontiguousarray(np.diff(self._table_asc, axis=0))
         self.taps_per_phase = self._table.shape[1]
         self.numtaps = h.size
         self._reach_back = int(self._i[-1])   # inputs down to a - i_max
@@ -325,8 +327,8 @@ class ArbitraryConverter(_Streaming):
         for s in range(0, count, step):
             n = min(step, count - s)
             a, p, eta = self._positions(self._n + s, n)
-            coef = table[p] * (1 - eta)[:, None].astype(self.dtype) \
-                + table[p + 1] * eta[:, None].astype(self.dtype)
+            coef = table[p]
+            coef += self._step_asc[p] * eta[:, None].astype(self.dtype)
             win = windows[:, a - self._buf_start - self._reach_back]   # C x n x width
             out[:, s:s + n] = np.einsum("cnk,nk->cn", win, coef, optimize=False)
         self._n += count
