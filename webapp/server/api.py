@@ -13,6 +13,7 @@ from webapp.jsontools import jsonable
 from webapp.dsp import spec as spec_module
 from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
 from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
+from webapp.dsp.timebase import TimeBase, timebase_design
 from webapp.store import ACTIVE_STATUSES, FINAL_STATUSES, new_id
 from webapp.delivery import DITHERS, Delivery
 from webapp import jobs
@@ -28,7 +29,7 @@ from .params import (choice, conversion_or_404, integer, json_body, number, rate
 from .uploads import UPLOAD_EXTENSIONS, discard_incoming, display_name, take_upload, \
     upload_extension
 
-__all__ = ["bp", "URLS", "COMMON_RATES_HZ", "OUTPUT_FORMAT_EXTENSIONS"]
+__all__ = ["bp", "URLS", "COMMON_RATES_HZ", "OUTPUT_FORMAT_EXTENSIONS", "submit_conversion"]
 
 bp = Blueprint("api", __name__, url_prefix="/api")
 
@@ -56,6 +57,10 @@ URLS = {
     "recipes": "/api/recipes",
     "renditions": "/api/renditions",
     "rendition_audio": "/api/renditions/{id}/{kind}",
+    "drift": "/api/drift",
+    "drift_listen": "/api/drift/listen",
+    "drift_listen_audio": "/api/drift/listen/{id}/{kind}",
+    "drift_conversions": "/api/drift/conversions",
     "clear": "/api/maintenance/clear",
     "plotly": "/static/vendor/plotly.min.js",
 }
@@ -407,10 +412,18 @@ def create_conversion():
             design_id = _store_design(spec, fs_in, fs_out, plan.figures())
         job = jobs.prepare(rec["path"], st.store.output_path(cid, OUTPUT_FORMAT_EXTENSIONS[fmt]),
                            fs_out=fs_out, spec=spec, delivery=delivery, plan=plan)
+    return submit_conversion(cid, rec, job, fmt=fmt, spec=spec, delivery=delivery,
+                             design_id=design_id, recipe=recipe)
+
+
+def submit_conversion(cid, rec, job, *, fmt, spec, delivery, design_id, recipe=None, stem=None):
+    """Record a prepared job as conversion ``cid`` of recording ``rec`` and queue it; the 202
+    answer every conversion endpoint gives (progress, downloads and history follow)."""
     conv = get_db().add_conversion(
         conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=job.fs_in,
         fs_out=job.fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
-        output_path=job.target, download_name=job.download_name(_stem(rec["name"])),
+        output_path=job.target,
+        download_name=job.download_name(stem or _stem(rec["name"])),
         frames_total=job.frames_total)
 
     def run(progress, cancel):
@@ -419,7 +432,7 @@ def create_conversion():
                               job=job).result
         return jobs.run(job, progress=progress, cancel=cancel)
 
-    st.pool.submit(cid, run)
+    state().pool.submit(cid, run)
     return _json(_public_conversion(conv), 202)
 
 
@@ -513,7 +526,9 @@ def _result_for(conv):
     rec = recording_or_404(conv["recording_id"])
     f = conv["figures"]
     spec = spec_module.Spec(**conv["spec"])
-    plan = st.cache.conversion_plan(spec, conv["fs_in"], conv["fs_out"])
+    time_base = TimeBase.from_dict(f["time_base"]) if f.get("time_base") else None
+    plan = (timebase_design(spec, time_base) if time_base is not None
+            else st.cache.conversion_plan(spec, conv["fs_in"], conv["fs_out"]))
     output_meters = {k: v for k, v in f["output"].items() if k != "clipped_samples"}
     return ConversionResult(
         source_path=rec["path"], output_path=conv["output_path"], fs_in=conv["fs_in"],
@@ -523,7 +538,8 @@ def _result_for(conv):
         output_format=f["output_format"], output_subtype=f["output_subtype"], bits=f["bits"],
         gain_db=f["gain_db"], gain_reason=f["gain_reason"], source_meters=f["source"],
         output_meters=output_meters, clipped_samples=f["clipped_samples"], passes=f["passes"],
-        source_sha256=f["source_sha256"], output_sha256=f["output_sha256"], version=f["version"])
+        source_sha256=f["source_sha256"], output_sha256=f["output_sha256"], version=f["version"],
+        time_base=time_base)
 
 
 def _user_names(conv):
