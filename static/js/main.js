@@ -11,8 +11,9 @@ import * as filter from './views/filter.js';
 import * as audit from './views/audit.js';
 import * as listen from './views/listen.js';
 import * as history from './views/history.js';
+import * as timebase from './views/timebase.js';
 
-const TABS = ['spectra', 'filter', 'audit', 'listen'];
+const TABS = ['spectra', 'filter', 'audit', 'listen', 'timebase'];
 
 function fatal(message) {
   const node = document.getElementById('app-status');
@@ -86,6 +87,7 @@ async function boot() {
   filter.init(document.getElementById('panel-filter'), state);
   audit.init(document.getElementById('panel-audit'), state);
   listen.init(document.getElementById('panel-listen'), state);
+  timebase.init(document.getElementById('panel-timebase'), state);
   history.init(document.getElementById('history-view'), state);
   setupTabs(state);
 
