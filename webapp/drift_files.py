@@ -18,11 +18,13 @@ Sign conventions (the time base's): ``drift_ppm`` is positive when the track's c
 ``offset_ms`` positive when the track's content comes late (starts later in its file).
 """
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import replace
 import math
 import os
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from . import jobs, media
 from .dsp.drift import measure_drift
@@ -41,9 +43,19 @@ def _reader(path):
     return lambda: media.read_blocks(path, dtype="float32")
 
 
+def _both_at_once(fn, sources, rates):
+    """Read and decimate the two recordings on two threads (numpy, scipy and libsndfile
+    release the GIL), the BLAS library held to one thread meanwhile: its own threads would
+    only compete with them for the cores."""
+    with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(2) as pool:
+        return list(pool.map(fn, sources, rates))
+
+
 def measure_files(reference, track, **options):
-    """:func:`webapp.dsp.drift.measure_drift` of two files (``options`` are its keywords)."""
+    """:func:`webapp.dsp.drift.measure_drift` of two files (``options`` are its keywords); both
+    files are read at once."""
     ref, trk = media.probe(reference), media.probe(track)
+    options.setdefault("mapper", _both_at_once)
     return measure_drift(_reader(reference), ref.rate_hz, _reader(track), trk.rate_hz,
                          **options)
 
