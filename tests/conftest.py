@@ -29,3 +29,9 @@ def tmp_audio(tmp_path):
         return path
 
     return make
+
+
+@pytest.fixture(autouse=True)
+def _state_folder(tmp_path_factory, monkeypatch):
+    """Keep the list of folders with partial files (webapp.partials) out of the user's home."""
+    monkeypatch.setenv("RATEFERRY_STATE_DIR", str(tmp_path_factory.mktemp("state")))

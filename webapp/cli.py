@@ -1,4 +1,4 @@
-"""The `rateferry` command: design, convert, drift, audit, plans, serve, clean.
+"""The `rateferry` command: design, convert, batch, drift, audit, plans, serve, clean.
 
 Bad input ends with one line, ``rateferry: error: <rule and value>``, exit code 2, nothing written.
 """
@@ -14,17 +14,22 @@ from . import __version__
 from .dsp.dither import DITHERS, WORD_LENGTHS
 from .dsp.errors import RateferryError
 from .dsp.spec import PRESETS, DEFAULT_PRESET, preset, spec_from_dict
+from .cli_args import OneLineParser, number_arg, rate_arg, whole_arg
 from .jsontools import jsonable
 
 EXIT_BAD_INPUT = 2
 
 SPEC_OPTIONS = [
     # flag, spec field, type, help
-    ("--passband", "passband_hz", float, "passband edge in Hz (default: a fraction of the lower Nyquist)"),
-    ("--passband-fraction", "passband_fraction", float, "passband edge as a fraction of the lower Nyquist"),
-    ("--stopband", "stopband_hz", float, "stopband edge in Hz (default: the lower Nyquist)"),
-    ("--ripple", "ripple_db", float, "largest passband deviation, +- dB"),
-    ("--attenuation", "attenuation_db", float, "smallest stopband rejection, dB"),
+    ("--passband", "passband_hz", number_arg("--passband", unit="Hz"),
+     "passband edge in Hz (default: a fraction of the lower Nyquist)"),
+    ("--passband-fraction", "passband_fraction", number_arg("--passband-fraction"),
+     "passband edge as a fraction of the lower Nyquist"),
+    ("--stopband", "stopband_hz", number_arg("--stopband", unit="Hz"),
+     "stopband edge in Hz (default: the lower Nyquist)"),
+    ("--ripple", "ripple_db", number_arg("--ripple", unit="dB"), "largest passband deviation, +- dB"),
+    ("--attenuation", "attenuation_db", number_arg("--attenuation", unit="dB"),
+     "smallest stopband rejection, dB"),
     ("--phase", "phase", str, "linear | minimum"),
     ("--method", "method", str, "auto | kaiser | equiripple | least-squares"),
     ("--arithmetic", "arithmetic", str, "float32 | float64"),
@@ -40,20 +45,6 @@ def _add_spec_options(p):
     p.add_argument("--transition-aliasing", dest="allow_transition_aliasing",
                    action="store_true", default=None,
                    help="let aliases fall into the transition band (stopband = lower rate - passband)")
-
-
-def _add_delivery_options(p):
-    """The delivery options of every command that writes audio (convert, drift --out)."""
-    p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
-                   help="output word length (default: like the source)")
-    p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
-                   help="dither for 16/24-bit outputs (default tpdf)")
-    p.add_argument("--seed", type=int, default=0, help="dither seed (default 0)")
-    p.add_argument("--ceiling", type=float, default=None,
-                   help="true-peak ceiling in dBTP (gain applied to stay under it)")
-    p.add_argument("--loudness", type=float, default=None,
-                   help="integrated loudness target in LUFS")
-    p.add_argument("--block-frames", type=int, default=65536, help="frames per block read")
 
 
 def spec_from_args(args):
@@ -130,6 +121,23 @@ def cmd_plans(args):
     return 0
 
 
+def _add_delivery_options(p):
+    p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
+                   help="output word length (default: like the source)")
+    p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
+                   help="dither for 16/24-bit outputs (default tpdf)")
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0,
+                   help="dither seed (default 0)")
+    p.add_argument("--ceiling", type=number_arg("--ceiling", low=-60.0, high=0.0, unit="dBTP"),
+                   default=None,
+                   help="true-peak ceiling in dBTP (gain applied to stay under it)")
+    p.add_argument("--loudness", type=number_arg("--loudness", low=-70.0, high=0.0, unit="LUFS"),
+                   default=None,
+                   help="integrated loudness target in LUFS")
+    p.add_argument("--block-frames", type=whole_arg("--block-frames", low=1, high=2**24),
+                   default=65536, help="frames per block read")
+
+
 def _delivery_from_args(args):
     from .delivery import Delivery
     return Delivery.from_dict(dict(bits=args.bits, dither=args.dither, dither_seed=args.seed,
@@ -137,7 +145,7 @@ def _delivery_from_args(args):
 
 
 def cmd_convert(args):
-    from . import jobs
+    from . import jobs, partials
     if args.recipe:
         from .recipe import load_recipe
         recipe = load_recipe(args.recipe)
@@ -154,6 +162,7 @@ def cmd_convert(args):
         job = jobs.prepare(args.input, args.output, fs_out=fs_out, spec=spec_from_args(args),
                            delivery=_delivery_from_args(args), block_frames=args.block_frames,
                            speed=args.speed, true_rate_hz=args.true_rate)
+    partials.sweep(os.path.dirname(os.path.abspath(args.output)))   # a crashed run's leftovers
     bar = ProgressBar(not args.quiet and not args.json, os.path.basename(args.input))
     if args.recipe:
         check = jobs.rerun(recipe, args.input, args.output, progress=bar, job=job)
@@ -167,6 +176,8 @@ def cmd_convert(args):
         from . import sheet
         sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
                           note=args.note)
+    for warning in result.warnings:
+        sys.stderr.write(f"rateferry: warning: {warning}\n")
     figs = result.figures()
     if args.recipe:
         figs["reproduces_recipe"] = check.reproduces
@@ -186,6 +197,40 @@ def cmd_convert(args):
         sys.stderr.write(f"rateferry: error: {err.message}; the output was kept for inspection\n")
         return jobs.EXIT_RECIPE_MISMATCH
     return 0
+
+
+def cmd_batch(args):
+    from . import batch
+    from .batch.cluster import scheduler_address
+    from .batch.inputs import check_pattern
+    from .batch.prepare import Settings
+    recipe = None
+    if args.recipe:
+        from .recipe import load_recipe
+        recipe = load_recipe(args.recipe)
+    settings = Settings(out_dir=args.out, fs_out=args.fs_out, spec=spec_from_args(args),
+                        delivery=_delivery_from_args(args), block_frames=args.block_frames,
+                        format=f".{args.format}" if args.format else None,
+                        name_pattern=check_pattern(args.names), recipe=recipe)
+    options = batch.BatchOptions(
+        inputs=tuple(args.inputs), settings=settings,
+        scheduler=scheduler_address(args.scheduler), workers=args.workers,
+        replace=args.replace, progress_line=not args.quiet and not args.json,
+        json_events=args.json, sheet=not args.no_sheet)
+    try:
+        outcome = batch.run_batch(options)
+    except KeyboardInterrupt:
+        sys.stderr.write("\nrateferry: batch interrupted; finished files are kept and recorded "
+                         "in the ledger: run the same command again to go on\n")
+        from .batch.run import EXIT_INTERRUPTED
+        return EXIT_INTERRUPTED
+    if not args.json and not args.quiet:
+        c = outcome.counts
+        print(f"batch: {c['done']} converted, {c['skipped']} already done, {c['failed']} "
+              f"failed ({outcome.cluster or 'no conversion needed'}); report "
+              f"{outcome.reports['csv']}" + (f", sheet {outcome.reports['sheet']}"
+                                             if "sheet" in outcome.reports else ""))
+    return outcome.exit_code
 
 
 def cmd_drift(args):
@@ -303,21 +348,23 @@ def cmd_clean(args):
 
 
 def build_parser():
-    ap = argparse.ArgumentParser(prog="rateferry",
-                                 description="Sample-rate conversion with a verified filter.")
+    ap = OneLineParser(prog="rateferry",
+                       description="Sample-rate conversion with a verified filter.")
     ap.add_argument("--version", action="version", version=f"rateferry {__version__}")
     sub = ap.add_subparsers(dest="command", required=True)
 
     p = sub.add_parser("design", help="design and measure the filter for a route")
-    p.add_argument("--from", dest="fs_in", type=int, required=True, help="source rate, Hz")
-    p.add_argument("--to", dest="fs_out", type=int, required=True, help="target rate, Hz")
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True,
+                   help="source rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True,
+                   help="target rate, Hz")
     _add_spec_options(p)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_design)
 
     p = sub.add_parser("plans", help="multistage plans against the single stage")
-    p.add_argument("--from", dest="fs_in", type=int, required=True)
-    p.add_argument("--to", dest="fs_out", type=int, required=True)
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True)
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True)
     _add_spec_options(p)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_plans)
@@ -325,7 +372,7 @@ def build_parser():
     p = sub.add_parser("convert", help="convert a file")
     p.add_argument("input")
     p.add_argument("output")
-    p.add_argument("--to", dest="fs_out", type=int, help="target rate, Hz")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), help="target rate, Hz")
     _add_spec_options(p)
     _add_delivery_options(p)
     p.add_argument("--speed", default=None, metavar="P/Q",
@@ -344,6 +391,8 @@ def build_parser():
     p.add_argument("--json", action="store_true")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cmd_convert)
+
+    _add_batch_parser(sub)
 
     p = sub.add_parser(
         "drift", help="measure (and correct) clock drift between recordings of one event",
@@ -375,17 +424,17 @@ def build_parser():
     p.set_defaults(func=cmd_drift)
 
     p = sub.add_parser("audit", help="measure the converter on standard test signals")
-    p.add_argument("--from", dest="fs_in", type=int, required=True)
-    p.add_argument("--to", dest="fs_out", type=int, required=True)
+    p.add_argument("--from", dest="fs_in", type=rate_arg("--from"), required=True)
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), required=True)
     _add_spec_options(p)
     p.add_argument("--dither", choices=list(DITHERS), default="none")
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0)
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_audit)
 
     p = sub.add_parser("serve", help="run the local web app")
     p.add_argument("--host", default="127.0.0.1")
-    p.add_argument("--port", type=int, default=8765)
+    p.add_argument("--port", type=whole_arg("--port", low=1, high=65535), default=8765)
     p.add_argument("--no-browser", action="store_true")
     p.add_argument("--debug", action="store_true", help="Flask's development server")
     p.add_argument("--instance", default=None, help="instance folder (data, database)")
@@ -393,14 +442,57 @@ def build_parser():
 
     p = sub.add_parser("clean", help="remove old uploads and outputs from the instance folder")
     p.add_argument("--instance", default=None)
-    p.add_argument("--days", type=float, default=7.0)
+    p.add_argument("--days", type=number_arg("--days", low=0.0, high=36500.0, unit="days"),
+                   default=7.0)
     p.set_defaults(func=cmd_clean)
     return ap
 
 
+BATCH_EPILOG = """exit status: 0 every file done (now or in an earlier run); 2 bad input found
+before any work (nothing converted); 4 some files failed (the others are done; see the report);
+130 interrupted (run the same command again to go on).
+name pattern parts: {stem} {parent} {rate} (16k, 44k1) {hz} (16000) {bits} (16bit, 24bit,
+32float, 64float) {format} (wav, flac); default: {stem}_{rate}_{bits}.<source format>."""
+
+
+def _add_batch_parser(sub):
+    from .media import OUTPUT_FORMATS
+    p = sub.add_parser("batch", help="convert many files (Dask: this machine or a cluster)",
+                       epilog=BATCH_EPILOG,
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("inputs", nargs="+", metavar="INPUT",
+                   help="audio files, folders (searched recursively) or manifests (.csv, .jsonl)")
+    p.add_argument("--out", required=True, help="output folder (holds the ledger and reports)")
+    p.add_argument("--to", dest="fs_out", type=rate_arg("--to"), help="target rate, Hz")
+    _add_spec_options(p)
+    _add_delivery_options(p)
+    p.add_argument("--recipe", help="apply a recipe (JSON) to every file: a template, or an "
+                   "exact re-run for its own source")
+    p.add_argument("--format", choices=sorted(e.lstrip(".") for e in OUTPUT_FORMATS),
+                   help="output format (default: the source's)")
+    p.add_argument("--names", metavar="PATTERN", default=None,
+                   help="output file-name pattern, e.g. '{stem}_{rate}.{format}'")
+    p.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                   help="run on this Dask scheduler (default: $RATEFERRY_SCHEDULER, else a "
+                        "local cluster)")
+    p.add_argument("--workers", type=whole_arg("--workers", low=1, high=4096), default=None,
+                   help="worker processes of the local cluster (default: one per core)")
+    p.add_argument("--replace", action="store_true",
+                   help="replace outputs that this batch did not make")
+    p.add_argument("--no-sheet", action="store_true", help="skip the batch sheet (HTML)")
+    p.add_argument("--json", action="store_true", help="JSON-lines events on stdout")
+    p.add_argument("--quiet", action="store_true", help="no progress line")
+    p.set_defaults(func=cmd_batch)
+
+
 def main(argv=None):
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:   # a bad option (one line already written), --help, --version
+        return exc.code
+    from . import partials
+    partials.sweep_remembered()   # partial files a crashed (kill -9) run left behind
     try:
         return args.func(args)
     except RateferryError as exc:

@@ -1,4 +1,5 @@
-"""How converted audio leaves the tool: word length, dither, true-peak ceiling, loudness target.
+"""How converted audio leaves the tool: word length, dither, true-peak ceiling, loudness target,
+limiter, channel layout and MP3 bit rate.
 
 :class:`Delivery` is the one description of these choices; the command line, the server, recipes
 and batch manifests all build it with :meth:`Delivery.from_dict` (JSON keys equal the field names).
@@ -9,10 +10,16 @@ import math
 
 import numpy as np
 
+from .dsp.channels import CHANNEL_LAYOUTS, MONO_LAWS
 from .dsp.dither import DITHERS, WORD_LENGTHS, noise_transfer_taps
 from .dsp.errors import ParameterError
+from .dsp.numbers import finite_number, shown
 
-__all__ = ["Delivery", "DITHERS", "WORD_LENGTHS", "gain_for"]
+__all__ = ["Delivery", "DITHERS", "WORD_LENGTHS", "CHANNEL_LAYOUTS", "MONO_LAWS", "MP3_MODES",
+           "MP3_KBPS_RANGE", "gain_for"]
+
+MP3_MODES = ("constant", "average", "variable")
+MP3_KBPS_RANGE = (32, 320)     # MPEG-1 Layer III bit rates (common practice)
 
 
 @dataclass(frozen=True)
@@ -26,7 +33,18 @@ class Delivery:
         (never above 0 dB unless a loudness target asks for it) so the output's true peak stays
         at or below it. -1 dBTP is common practice for spoken-word delivery.
     loudness_lufs : float or None. Integrated loudness target (e.g. -16 LUFS, common practice
-        for podcasts); applied together with the ceiling, the lower gain wins.
+        for podcasts); applied together with the ceiling, the lower gain wins unless the
+        limiter may act.
+    loudness_tolerance_lu : float or None. How far the delivered loudness may land from the
+        target (e.g. 0.5 LU for EBU R 128); None: no promise, report only.
+    limiter : bool. Let the true-peak limiter hold the ceiling so the loudness target is met.
+    max_limiting_db : float. The most gain reduction the limiter may apply (0 to 40 dB); a
+        delivery that would need more is reported as not meeting its target.
+    channel_layout : "keep" | "mono" | "pick" | "stereo" (see webapp.dsp.channels).
+    mono_law : "half" | "equal_power" | "sum": how "mono" sums the channels.
+    pick_channel : int, 1-based channel "pick" delivers (1 = first, the left of a stereo pair).
+    mp3_kbps : int or None. MP3 bit rate, 32 to 320 kbit/s (MP3 output only).
+    mp3_mode : "constant" | "average" | "variable" bit rate.
     """
 
     bits: str | None = None
@@ -34,6 +52,14 @@ class Delivery:
     dither_seed: int = 0
     ceiling_dbtp: float | None = None
     loudness_lufs: float | None = None
+    loudness_tolerance_lu: float | None = None
+    limiter: bool = False
+    max_limiting_db: float = 6.0
+    channel_layout: str = "keep"
+    mono_law: str = "half"
+    pick_channel: int = 1
+    mp3_kbps: int | None = None
+    mp3_mode: str = "constant"
 
     def __post_init__(self):
         if self.dither not in DITHERS:
@@ -51,6 +77,29 @@ class Delivery:
                                                    and -70.0 <= self.loudness_lufs <= 0.0):
             raise ParameterError(f"loudness_lufs must be a number from -70 to 0 LUFS, got "
                                  f"{self.loudness_lufs!r}", "loudness_lufs")
+        if self.loudness_tolerance_lu is not None and not (
+                _number(self.loudness_tolerance_lu) and 0.0 < self.loudness_tolerance_lu <= 10.0):
+            raise ParameterError(f"loudness_tolerance_lu must be a number above 0 and at most 10 LU, "
+                                 f"got {self.loudness_tolerance_lu!r}", "loudness_tolerance_lu")
+        if not isinstance(self.limiter, bool):
+            raise ParameterError(f"limiter must be true or false, got {self.limiter!r}", "limiter")
+        if not (_number(self.max_limiting_db) and 0.0 <= self.max_limiting_db <= 40.0):
+            raise ParameterError(f"max_limiting_db must be a number from 0 to 40 dB, got "
+                                 f"{self.max_limiting_db!r}", "max_limiting_db")
+        for name, choices in (("channel_layout", CHANNEL_LAYOUTS), ("mono_law", MONO_LAWS),
+                              ("mp3_mode", MP3_MODES)):
+            if getattr(self, name) not in choices:
+                raise ParameterError(f"{name} must be one of {', '.join(choices)}, got "
+                                     f"{getattr(self, name)!r}", name)
+        if isinstance(self.pick_channel, bool) or not isinstance(self.pick_channel, int) \
+                or not 1 <= self.pick_channel <= 64:
+            raise ParameterError(f"pick_channel must be a whole number from 1 to 64, got "
+                                 f"{self.pick_channel!r}", "pick_channel")
+        low, high = MP3_KBPS_RANGE
+        if self.mp3_kbps is not None and (isinstance(self.mp3_kbps, bool) or not isinstance(self.mp3_kbps, int)
+                                          or not low <= self.mp3_kbps <= high):
+            raise ParameterError(f"mp3_kbps must be a whole number from {low} to {high} kbit/s, got "
+                                 f"{self.mp3_kbps!r}", "mp3_kbps")
 
     def to_dict(self):
         return asdict(self)
@@ -80,13 +129,17 @@ class Delivery:
                 raise ParameterError(f"bits must be one of {', '.join(WORD_LENGTHS)} (or null "
                                      f"for like the source), got {data.get('bits')!r}", "bits")
             values["bits"] = bits
-        for name in ("ceiling_dbtp", "loudness_lufs"):
+        for name in ("ceiling_dbtp", "loudness_lufs", "loudness_tolerance_lu", "max_limiting_db"):
             v = values.get(name)
             if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float))):
-                raise ParameterError(f"{name} must be a number or null, got {v!r}", name)
+                raise ParameterError(f"{name} must be a number or null, got {shown(v)}", name)
             if v is not None:
-                values[name] = float(v)
+                values[name] = finite_number(v, name)
         return cls(**values)
+
+
+def _number(value):
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
 
 
 def gain_for(delivery, out_meters, bits, rate_hz):

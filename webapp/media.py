@@ -20,15 +20,15 @@ from dataclasses import dataclass, field
 import hashlib
 import math
 import os
-import secrets
 
 import numpy as np
 import soundfile as sf
 
-from webapp import __version__
+from webapp import __version__, partials
 from webapp.dsp.dither import WORD_LENGTHS  # word lengths an output may carry (one list)
 from webapp.dsp.errors import AudioFileError, ParameterError
 from webapp.dsp.rates import validate_rate
+from webapp.oserrors import os_error_text, read_failure, write_failure as _write_failure
 
 __all__ = [
     "OUTPUT_FORMATS",
@@ -211,10 +211,10 @@ def _open_source(path):
         if exc.code in (1, 7):
             reason = "not a recognised audio format (or the header is damaged)"
         else:
-            reason = exc.error_string.strip().rstrip(".") or f"libsndfile error {exc.code}"
+            reason = read_failure(exc, path) or f"libsndfile error {exc.code}"
         raise AudioFileError(f"cannot read '{name}': {reason}", "path") from None
     except (OSError, RuntimeError) as exc:
-        raise AudioFileError(f"cannot read '{name}': {exc}", "path") from None
+        raise AudioFileError(f"cannot read '{name}': {read_failure(exc, path)}", "path") from None
 
 
 def probe(path):
@@ -384,8 +384,8 @@ def _iter_blocks(path, blocksize, dtype, start, frames):
                 block = f.read(min(blocksize, remaining), dtype=dtype, always_2d=True)
             except sf.LibsndfileError as exc:
                 raise AudioFileError(
-                    f"cannot read '{name}' at frame {position}: {exc.error_string}", "path"
-                ) from None
+                    f"cannot read '{name}' at frame {position}: {read_failure(exc, path)}",
+                    "path") from None
             if block.shape[0] == 0:
                 return  # the header promised more frames than the file holds
             _check_finite_block(block, name=name, first_frame=position)
@@ -648,8 +648,10 @@ class AtomicWriter:
 
     Notes
     -----
-    The data goes to ``.<stem>.<random>.partial<ext>`` in the target's folder; a clean exit
-    closes it, fsyncs it, ``os.replace`` s it onto the target and fsyncs the folder. An
+    The data goes to a partial file in the hidden folder ``.rateferry-partial/`` of the
+    target's folder (:mod:`webapp.partials`: a crash leaves it where the next start removes
+    it); a clean exit closes it, fsyncs it, ``os.replace`` s it onto the target and fsyncs the
+    folder. An
     exception, :meth:`abort`, or a file with no frames deletes the temporary file and leaves any
     existing target untouched. A symlink at the target is replaced, never followed.
 
@@ -681,6 +683,7 @@ class AtomicWriter:
         self._tags = {k: v for k, v in self._tags.items() if k in supported}
         self.frames_written = 0
         self.temp_path = None
+        self._partial = None
         self._fd = None
         self._sf = None
         self._done = False
@@ -726,19 +729,13 @@ class AtomicWriter:
                                  "output")
         if os.path.isdir(self.path):
             raise AudioFileError(f"cannot write '{name}': a folder of that name exists", "output")
-        stem, ext = os.path.splitext(os.path.basename(self.path))
-        for _ in range(16):
-            temp = os.path.join(folder, f".{stem}.{secrets.token_hex(6)}.partial{ext}")
-            try:
-                self._fd = os.open(temp, os.O_RDWR | os.O_CREAT | os.O_EXCL, 0o666)
-                break
-            except FileExistsError:
-                continue
-            except OSError as exc:
-                raise AudioFileError(f"cannot write '{name}': {exc.strerror}", "output") from None
-        else:
-            raise AudioFileError(f"cannot write '{name}': no free temporary name", "output")
-        self.temp_path = temp
+        try:
+            self._partial = partials.create(self.path, suffix=os.path.splitext(self.path)[1])
+        except OSError as exc:
+            raise AudioFileError(f"cannot write '{name}': {os_error_text(exc, self.path)}",
+                                 "output") from None
+        self._fd = self._partial.fd
+        self.temp_path = self._partial.path
         try:
             self._sf = sf.SoundFile(self._fd, mode="w", samplerate=self.plan.rate_hz,
                                     channels=self.plan.channels, subtype=self.plan.subtype,
@@ -747,8 +744,8 @@ class AtomicWriter:
                 setattr(self._sf, key, value)  # before audio: FLAC/Ogg write tags up front
         except Exception as exc:
             self.abort()
-            reason = getattr(exc, "error_string", None) or str(exc)
-            raise AudioFileError(f"cannot write '{name}': {reason}", "output") from None
+            raise AudioFileError(f"cannot write '{name}': {_write_failure(exc, self.path)}",
+                                 "output") from None
         return self
 
     def write(self, block):
@@ -785,8 +782,8 @@ class AtomicWriter:
         try:
             self._sf.write(block)
         except Exception as exc:
-            reason = getattr(exc, "error_string", None) or str(exc)
-            raise AudioFileError(f"cannot write '{name}': {reason}", "output") from None
+            raise AudioFileError(f"cannot write '{name}': {_write_failure(exc, self.path)}",
+                                 "output") from None
         self.frames_written += block.shape[0]
 
     def commit(self):
@@ -802,13 +799,13 @@ class AtomicWriter:
             self._sf = None
             os.fsync(self._fd)
             os.close(self._fd)
-            self._fd = None
-            os.replace(self.temp_path, self.path)
+            self._fd = self._partial.fd = None
+            self._partial.finish()
             self.temp_path = None
         except Exception as exc:
             self.abort()
-            reason = getattr(exc, "error_string", None) or getattr(exc, "strerror", None) or exc
-            raise AudioFileError(f"cannot finish '{name}': {reason}", "output") from None
+            raise AudioFileError(f"cannot finish '{name}': {_write_failure(exc, self.path)}",
+                                 "output") from None
         self._done = True
         _fsync_folder(os.path.dirname(os.path.abspath(self.path)))
 
@@ -821,15 +818,11 @@ class AtomicWriter:
             except Exception:
                 pass  # the file is being thrown away
             self._sf = None
-        if self._fd is not None:
-            os.close(self._fd)
-            self._fd = None
-        if self.temp_path is not None:
-            try:
-                os.unlink(self.temp_path)
-            except FileNotFoundError:
-                pass
-            self.temp_path = None
+        if self._partial is not None:
+            self._partial.discard()   # closes the descriptor, removes the file and its lock
+            self._partial = None
+        self._fd = None
+        self.temp_path = None
 
 
 def _fsync_folder(folder):

@@ -20,7 +20,7 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from . import __version__
-from . import media
+from . import media, riff
 from .dsp.dither import Quantizer
 from .delivery import Delivery, gain_for
 from .dsp.errors import ParameterError, RateferryError
@@ -67,6 +67,7 @@ class ConversionResult:
     output_sha256: str = ""
     version: str = __version__
     recipe_check: dict | None = None    # a recipe re-run: reproduces, differences
+    warnings: tuple = ()                # e.g. a source shorter than its header declares
     time_base: object = None            # the job's TimeBase (a drift correction) or None
     speed: object = None                # the job's SpeedChange or None
 
@@ -81,7 +82,7 @@ class ConversionResult:
                                                          clipped_samples=self.clipped_samples),
             clipped_samples=self.clipped_samples, delivery=self.delivery.to_dict(),
             source_sha256=self.source_sha256, output_sha256=self.output_sha256,
-            version=self.version,
+            version=self.version, warnings=list(self.warnings),
         )
         if self.recipe_check is not None:
             d["recipe_check"] = dict(self.recipe_check)
@@ -251,6 +252,18 @@ def _prefetch(blocks, *, depth=3):
         thread.join()
 
 
+def short_source_warnings(source, frames_read, frames_declared):
+    """A warning when the source held fewer frames than its header declares (a cut-off
+    recording: libsndfile trims its frame count to the data there, without an error, so the
+    declared figure comes from the header itself, :func:`webapp.riff.declared_frames`)."""
+    if frames_read >= frames_declared:
+        return ()
+    name = os.path.basename(os.fspath(source))
+    return (f"'{name}' is shorter than its header declares: {frames_read} of "
+            f"{frames_declared} frames could be read (the file was cut off?); the output holds "
+            f"the {frames_read} frames there are",)
+
+
 def _check_cancel(cancel):
     if cancel is not None and cancel.is_set():
         raise Cancelled("the conversion was cancelled; no output was written", "conversion")
@@ -338,16 +351,20 @@ def _execute(job, *, progress, cancel, tags_comment):
             source_stage = None if needs_first_pass else stages.add(source_meters.process,
                                                                     "rateferry-source-meters")
             quant_stage = stages.add(quantize, "rateferry-quantizer") if quant else None
+            frames_read = 0
             for block in _prefetch(media.read_blocks(source, blocksize=blocksize)):
                 _check_cancel(cancel)
                 if source_stage is not None:
                     source_stage.submit(block)
                 deliver(conv.process(block))
                 done += block.shape[0]
+                frames_read += block.shape[0]
                 report(done)
             _check_cancel(cancel)
             deliver(conv.flush())
     report(total_work)
+    warnings = short_source_warnings(source, frames_read,
+                                     max(src.frames, riff.declared_frames(source) or 0))
     out_sha = media.sha256_file(target)
     return ConversionResult(
         source_path=os.fspath(source), output_path=os.fspath(target), fs_in=fs_in,
@@ -359,4 +376,4 @@ def _execute(job, *, progress, cancel, tags_comment):
         output_meters=out_meters.result(),
         clipped_samples=int(quant.clipped_samples) if quant is not None else 0,
         passes=passes, block_frames=int(blocksize), source_sha256=media.sha256_file(source),
-        output_sha256=out_sha, time_base=job.time_base, speed=job.speed)
+        output_sha256=out_sha, warnings=warnings, time_base=job.time_base, speed=job.speed)

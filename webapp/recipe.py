@@ -30,15 +30,15 @@ import functools
 import json
 import math
 import os
-import secrets
 
 import jsonschema
 import numpy as np
 
-from . import __version__, media
+from . import __version__, media, partials
 from . import pipeline
 from .delivery import Delivery
-from .jsontools import jsonable
+from .jsontools import jsonable, loads_checked
+from .oserrors import os_error_text
 from .dsp.errors import ParameterError
 from .dsp.rates import SpeedChange, speed_change
 from .dsp.rates import route as make_route
@@ -51,6 +51,15 @@ __all__ = ["RECIPE_SCHEMA", "RECIPE_VERSION", "SCHEMA_PATH", "RECIPE_MAX_BYTES",
 
 RECIPE_SCHEMA = "rateferry-recipe"
 RECIPE_VERSION = 1
+# The Delivery fields recipe version 1 records. The fields added for limiter, channel layout,
+# MP3 and loudness tolerance are not applied by the pipeline yet; the recipe version grows when
+# they are.
+RECIPE_V1_DELIVERY = ("bits", "dither", "dither_seed", "ceiling_dbtp", "loudness_lufs")
+
+
+def recipe_delivery(delivery):
+    """The part of ``delivery.to_dict()`` this recipe version records."""
+    return {k: v for k, v in delivery.to_dict().items() if k in RECIPE_V1_DELIVERY}
 SCHEMA_PATH = os.path.join(os.path.dirname(os.path.abspath(__file__)), "schemas",
                            "recipe.schema.json")
 #: A recipe is a few kilobytes; anything far larger is not one (and is not read into memory).
@@ -326,7 +335,7 @@ def recipe_from_result(result, *, block_frames=None, created=None, source_name=N
                   "up": int(up), "down": int(down)},
         "spec": jsonable(result.spec.to_dict()),
         "design": jsonable(_without_timings(design.figures())),
-        "delivery": jsonable(result.delivery.to_dict()),
+        "delivery": jsonable(recipe_delivery(result.delivery)),
         "gain_db": float(result.gain_db),
         "gain_reason": result.gain_reason,
         "block_frames": _block_frames_of(result, block_frames),
@@ -347,7 +356,7 @@ def _dump_json(obj, *, indent=None):
 
 
 def write_json_atomic(path, text, what):
-    """Write ``text`` to ``path`` atomically (temporary file in the same folder, then rename)."""
+    """Write ``text`` to ``path`` atomically (a partial file, then a rename onto ``path``)."""
     path = os.fspath(path)
     name = os.path.basename(path) or path
     folder = os.path.dirname(os.path.abspath(path))
@@ -357,25 +366,23 @@ def write_json_atomic(path, text, what):
     if os.path.isdir(path):
         raise ParameterError(f"cannot write the {what} '{name}': a folder of that name exists",
                              what)
-    temp = os.path.join(folder, f".{name}.{secrets.token_hex(6)}.partial")
-    try:
-        with open(temp, "x", encoding="utf-8", newline="\n") as f:
+    partial = None
+    try:   # a partial file in .rateferry-partial/ (webapp.partials): a crash leaves no lookalike
+        partial = partials.create(path)
+        with os.fdopen(partial.fd, "w", encoding="utf-8", newline="\n") as f:
+            partial.fd = None
             f.write(text)
             f.flush()
             os.fsync(f.fileno())
-        os.replace(temp, path)
+        partial.finish()
     except OSError as exc:
-        try:
-            os.unlink(temp)
-        except OSError:
-            pass
-        raise ParameterError(f"cannot write the {what} '{name}': {exc.strerror or exc}",
+        if partial is not None:
+            partial.discard()
+        raise ParameterError(f"cannot write the {what} '{name}': {os_error_text(exc, path)}",
                              what) from None
     except BaseException:
-        try:
-            os.unlink(temp)
-        except OSError:
-            pass
+        if partial is not None:
+            partial.discard()
         raise
     return path
 
@@ -390,10 +397,6 @@ def write_recipe(result, path, *, block_frames=None, created=None, source_name=N
                               source_name=source_name, output_name=output_name)
     write_json_atomic(path, _dump_json(data, indent=2) + "\n", "recipe")
     return data
-
-
-def _reject_constant(name):
-    raise ValueError(f"{name} is not a JSON number")
 
 
 def _read_source(source):
@@ -429,18 +432,10 @@ def _read_source(source):
     if len(raw) > RECIPE_MAX_BYTES:
         raise ParameterError(f"{name} is larger than {RECIPE_MAX_BYTES} bytes; a recipe is a "
                              "few kilobytes of JSON", "recipe")
-    if isinstance(raw, bytes):
-        try:
-            raw = raw.decode("utf-8-sig")
-        except UnicodeDecodeError as exc:
-            raise ParameterError(f"{name} is not UTF-8 text (byte {exc.start})",
-                                 "recipe") from None
-    try:
-        return json.loads(raw, parse_constant=_reject_constant)
-    except ValueError as exc:
-        where = f" at line {exc.lineno}, column {exc.colno}" if hasattr(exc, "lineno") else ""
-        reason = exc.msg if hasattr(exc, "msg") else str(exc)
-        raise ParameterError(f"{name} is not valid JSON{where}: {reason}", "recipe") from None
+    try:   # depth-limited: a recipe nested 100000 levels deep is refused, not recursed
+        return loads_checked(raw, name=name)
+    except ParameterError as exc:
+        raise ParameterError(exc.message, "recipe") from None
 
 
 def _check_version(data):

@@ -382,7 +382,9 @@ def _source_html(result, source_name):
             f'<div class="columns"><div>{facts}</div><div>{meters}</div></div></section>')
 
 
-def _route_html(result, figs):
+def _route_html(result, figs, prefix=""):
+    """``result`` needs plan, spec, fs_in, fs_out; ``prefix`` keeps ids apart when a page
+    shows several routes (the batch sheet)."""
     design, mask, spec = result.plan, result.plan.mask, result.spec
     edge_key = "mask.{}" if "mask" in figs else None   # a plan's figures carry no mask
     rows = [("route", None, f"{result.fs_in} Hz to {result.fs_out} Hz"),
@@ -399,13 +401,14 @@ def _route_html(result, figs):
             ("phase asked for", None, spec.phase),
             ("method asked for", None, spec.method),
             ("stages asked for", None, spec.stages)]
-    return ('<section class="sheet-section" id="route"><h2>Route and mask</h2>'
+    return (f'<section class="sheet-section" id="{prefix}route"><h2>Route and mask</h2>'
             f"{_table(rows)}</section>")
 
 
-def _design_html(result, figs):
+def _design_html(result, figs, prefix=""):
     design = result.plan
-    h = ['<section class="sheet-section" id="design"><h2>Filter design and verdict</h2>']
+    h = [f'<section class="sheet-section" id="{prefix}design"><h2>Filter design and verdict'
+         '</h2>']
     for reason in (figs.get("path_reason"), figs.get("method_reason")):
         if reason:
             h.append(f'<p class="reason">{_esc(reason)}.</p>')
@@ -416,12 +419,12 @@ def _design_html(result, figs):
                       figs["measured"].get("worst_stopband_hz"), "Hz"),
                      ("meets the mask", "meets_mask", bool(design.meets_mask))]))
     h.append("</div></div>")
-    h.append(_plot_div("response", "Response against the mask over the whole prototype range "
+    h.append(_plot_div(prefix + "response", "Response against the mask over the whole prototype range "
                        "(each point is the highest level of its band, so the worst case "
                        "shows), with both Nyquist limits."))
-    h.append(_plot_div("passband", "Passband close-up with the ripple limits (each point pair "
+    h.append(_plot_div(prefix + "passband", "Passband close-up with the ripple limits (each point pair "
                        "is the lowest and highest level of its band)."))
-    h.append(_plot_div("impulse", "Impulse response; the shaded part before the peak is the "
+    h.append(_plot_div(prefix + "impulse", "Impulse response; the shaded part before the peak is the "
                        "pre-ringing (taps above -60 dB of the peak)."))
     if design.multistage:
         rates = " → ".join(str(r) for r in design.rates)

@@ -16,7 +16,6 @@ Conventions
 """
 
 from concurrent.futures import ThreadPoolExecutor
-import glob
 import json
 import logging
 import math
@@ -25,6 +24,8 @@ import secrets
 import sqlite3
 import threading
 import time
+
+from . import partials
 
 __all__ = ["STATUSES", "ACTIVE_STATUSES", "FINAL_STATUSES", "Store", "Db", "ConversionPool",
            "new_id", "default_instance_path", "clear_old", "INTERRUPTED_MESSAGE"]
@@ -176,6 +177,14 @@ class Store:
     def rendition_folder(self):
         return self.renditions
 
+    def sweep_partials(self):
+        """Remove partial files whose writer is gone (a crash, kill -9) from the instance
+        folders and from every folder the command line remembers; return their paths."""
+        removed = []
+        for folder in (self.uploads, self.outputs, self.renditions):
+            removed += partials.sweep(folder)
+        return removed + partials.sweep_remembered()
+
     def recover_interrupted(self):
         """Mark conversions left ``queued``/``running`` as failed; remove their partial files.
 
@@ -198,16 +207,9 @@ class Store:
 
 
 def _remove_partials(output_path):
-    """Remove ``output_path`` and the writer's temporary files beside it."""
-    folder = os.path.dirname(output_path)
-    stem, ext = os.path.splitext(os.path.basename(output_path))
-    # media.AtomicWriter writes ".<stem>.<random>.partial<ext>" beside the target
-    pattern = os.path.join(glob.escape(folder), f".{glob.escape(stem)}.*.partial{glob.escape(ext)}")
-    for path in glob.glob(pattern) + [output_path]:
-        try:
-            os.unlink(path)
-        except FileNotFoundError:
-            pass
+    """Remove ``output_path`` and the partial files of dead writers beside it."""
+    partials.sweep(os.path.dirname(output_path))
+    _unlink(output_path)
 
 
 class Db:

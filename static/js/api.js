@@ -96,6 +96,10 @@ export const drift = (body, signal) => post(urlFor('drift'), body, { signal });
 export const driftListen = (body, signal) => post(urlFor('drift_listen'), body, { signal });
 export const startDriftConversion = (body) => post(urlFor('drift_conversions'), body);
 export const clearOld = (days) => post(urlFor('clear'), { older_than_days: days });
+export const startBatch = (body) => post(urlFor('batches'), body);
+export const batch = (id) => get(urlFor('batch', { id }));
+export const batches = () => get(urlFor('batches'));
+export const cancelBatch = (id) => post(urlFor('batch_cancel', { id }), {});
 
 export function uploadRecipe(file) {
   const form = new FormData();

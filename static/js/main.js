@@ -12,6 +12,7 @@ import * as audit from './views/audit.js';
 import * as listen from './views/listen.js';
 import * as history from './views/history.js';
 import * as timebase from './views/timebase.js';
+import * as batch from './views/batch.js';
 
 const TABS = ['spectra', 'filter', 'audit', 'listen', 'timebase'];
 
@@ -89,6 +90,7 @@ async function boot() {
   listen.init(document.getElementById('panel-listen'), state);
   timebase.init(document.getElementById('panel-timebase'), state);
   history.init(document.getElementById('history-view'), state);
+  batch.init(document.getElementById('batch-view'), state);
   setupTabs(state);
 
   // A new recording keeps the route unless it would convert to its own rate.

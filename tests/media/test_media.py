@@ -373,7 +373,11 @@ def test_large_aiff_is_refused():
 # atomic writing
 
 def _partials(folder):
-    return [n for n in os.listdir(folder) if ".partial" in n]
+    """Partial files and their folder: the writer keeps them in .rateferry-partial/."""
+    sub = os.path.join(folder, ".rateferry-partial")
+    inside = sorted(os.listdir(sub)) if os.path.isdir(sub) else []
+    return [n for n in os.listdir(folder) if ".partial" in n] + \
+        [n for n in inside if n.endswith(".partial")]
 
 
 def test_target_appears_only_after_a_clean_exit(tmp_path, rng):
@@ -385,7 +389,7 @@ def test_target_appears_only_after_a_clean_exit(tmp_path, rng):
         out.write(data[6000:])
         assert not target.exists()
         (temp,) = _partials(tmp_path)
-        assert temp.startswith(".episode.") and temp.endswith(".partial.wav")
+        assert temp.startswith("episode.") and temp.endswith(".wav.partial")
     assert target.exists()
     assert _partials(tmp_path) == []
     back, rate = sf.read(target, always_2d=True)

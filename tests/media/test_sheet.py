@@ -300,8 +300,10 @@ def test_schema_pins_the_spec_and_delivery_fields(schema):
     assert set(spec_props) == {f.name for f in fields(Spec)}
     assert set(schema["properties"]["spec"]["required"]) == set(spec_props)
     dl = schema["properties"]["delivery"]
-    assert set(dl["properties"]) == set(dl["required"]) == {f.name for f in
-                                                            fields(Delivery)}
+    # version 1 records the Delivery fields the pipeline applies; those added for limiter,
+    # channel layout and MP3 join with the version that applies them
+    assert set(dl["properties"]) == set(dl["required"]) == set(recipe_module.RECIPE_V1_DELIVERY)
+    assert set(recipe_module.RECIPE_V1_DELIVERY) <= {f.name for f in fields(Delivery)}
     assert schema["properties"]["version"]["const"] == recipe_module.RECIPE_VERSION == 1
 
 

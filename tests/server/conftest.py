@@ -150,3 +150,35 @@ def wait_done(client):
             time.sleep(0.05)
 
     return wait
+
+
+@pytest.fixture
+def live_server(make_app):
+    """``live_server(**config) -> (app, base_url)``: the app on waitress (webapp.server.wsgi,
+    as `rateferry serve` runs it) on 127.0.0.1 at a free port, in a thread; stopped at the end."""
+    import threading
+
+    from webapp.server.wsgi import make_server
+    servers = []
+
+    def start(**config):
+        app = make_app(**config)
+        server = make_server(app, host="127.0.0.1", port=0, threads=config.get("THREADS", 16))
+        app.config["SERVER_PORT"] = server.effective_port
+        stop = threading.Event()
+
+        def loop():   # waitress's run(), in short turns so it can be stopped cleanly
+            while not stop.is_set():
+                server.asyncore.loop(timeout=0.05, map=server._map, count=1)
+
+        thread = threading.Thread(target=loop, name="live-waitress", daemon=True)
+        thread.start()
+        servers.append((server, thread, stop))
+        return app, f"http://127.0.0.1:{server.effective_port}"
+
+    yield start
+    for server, thread, stop in servers:
+        stop.set()
+        thread.join(timeout=5)
+        server.task_dispatcher.shutdown(timeout=5)
+        server.close()

@@ -73,9 +73,15 @@ def test_interrupted_conversion_is_marked_failed_and_its_partial_output_removed(
                           fs_in=48000, fs_out=16000, format="flac", spec={}, delivery={},
                           output_path=os.path.join(store.outputs, "queued1.flac"),
                           download_name="y_16k.flac", frames_total=24000)
-    partial = os.path.join(store.outputs, ".crashed1.0123456789ab.partial.flac")
+    # the writer's partial file and its lock naming a process that has ended (pid 2**22 + 1
+    # is above Linux's pid_max default of 2**22, so no process has it)
+    pfolder = os.path.join(store.outputs, ".rateferry-partial")
+    os.makedirs(pfolder, exist_ok=True)
+    partial = os.path.join(pfolder, "crashed1.0123456789ab.flac.partial")
     with open(partial, "wb") as f:
         f.write(b"half a file")
+    with open(os.path.join(pfolder, "crashed1.0123456789ab.lock"), "w") as f:
+        json.dump({"pid": 2**22 + 1, "started": None, "boot": None}, f)
     kept = os.path.join(store.outputs, done["id"] + ".flac")
 
     restarted = make_app()

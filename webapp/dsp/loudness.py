@@ -12,21 +12,26 @@ References
 ----------
 ITU-R BS.1770-4 (10/2015), "Algorithms to measure audio programme loudness and true-peak audio
 level": K-weighting table (Annex 1, 48 kHz), channel weights, gating (400 ms blocks, 75 % overlap,
--70 LKFS absolute gate, -10 LU relative gate), true-peak guideline and example filter (Annex 2).
+-70 LKFS absolute gate, -10 LU relative gate), true-peak guideline (Annex 2: at least 4x; our
+16x interpolator is in :mod:`webapp.dsp.oversample`).
 EBU Tech 3341 ("EBU Mode" metering: momentary 400 ms, short-term 3 s) and EBU Tech 3342
 (loudness range: 3 s short-term values, -70 LUFS absolute and -20 LU relative gates, 10th to 95th
 percentile).
 """
 
 from array import array
+import copy
 from dataclasses import dataclass
 import math
 import numbers
 
+from functools import lru_cache
+
 import numpy as np
-from scipy import signal
+from scipy import optimize, signal
 
 from .errors import ParameterError
+from .oversample import OVERSAMPLING, PeakInterpolator
 from .rates import validate_rate
 
 __all__ = [
@@ -102,6 +107,14 @@ _SHELF = _shelf_prototype()
 _HIGHPASS = _highpass_prototype()
 
 
+# Below this rate the bilinear transform's warping moves the shelf by more than 0.01 dB, so the
+# two biquads are refined by a fit to the 48 kHz table's response (see k_weighting).
+_FIT_BELOW_HZ = 44100
+_FIT_POINTS = 600
+_FIT_LOW_HZ = 10.0
+_FIT_TOP_FRACTION = 0.45
+
+
 def k_weighting(rate_hz):
     """Second-order sections of the BS.1770 K-weighting at ``rate_hz``.
 
@@ -128,15 +141,30 @@ def k_weighting(rate_hz):
     table by inverting the bilinear transform pre-warped at each section's f0 (stage 1: about
     1681.97 Hz, Q 0.7072, +4.00 dB; stage 2: about 38.14 Hz, Q 0.5003), then mapped to
     ``rate_hz`` by the bilinear transform pre-warped at the same f0. At 48 kHz this returns the
-    table itself. Elsewhere the warping of the bilinear transform away from f0 leaves, up to
-    0.45 fs (at most 20 kHz), a deviation from the 48 kHz response of at most 0.01 dB from
-    44.1 to 192 kHz, 0.012 dB at 32 kHz, 0.035 dB at 22.05 kHz, 0.07 dB at 16 kHz and 0.3 dB at
-    8 kHz, largest near 2.7 kHz. Stage 2 keeps the table's high-frequency gain of about
-    +0.043 dB at every rate (see ``_highpass_prototype``); implementations that keep the
-    numerator ``1, -2, 1`` at every rate read higher by ``20 log10(a0(fs) / a0(48 kHz))``:
-    +0.05 LU at 22.05 kHz, +0.09 LU at 16 kHz, -0.02 LU at 96 kHz.
+    table itself; from 44.1 kHz up the warping leaves, up to 0.45 fs (at most 20 kHz), a
+    deviation from the 48 kHz response of at most 0.01 dB. Stage 2 keeps the table's
+    high-frequency gain of about +0.043 dB at every rate (see ``_highpass_prototype``).
+
+    Below 44.1 kHz the shelf at 1.7 kHz comes close to Nyquist and the bilinear design
+    deviates by up to 0.3 dB near 2.7 kHz at 8 kHz (0.07 dB at 16 kHz): speech measured at
+    8 kHz read about 0.1 LU high. There the ten coefficients are refined, starting from the
+    bilinear design, by a least-squares fit (``scipy.optimize.least_squares``) of the log
+    magnitude to the 48 kHz table's response on 600 log-spaced points from 10 Hz to 0.45 fs:
+    the deviation drops to 0.012 dB at 8 kHz, 0.0012 dB at 16 kHz and 0.0003 dB at 22.05 kHz
+    (poles checked inside the unit circle). Phase is not matched; loudness only needs magnitude.
     """
-    rate = _validate_loudness_rate(rate_hz)
+    return _k_weighting(_validate_loudness_rate(rate_hz)).copy()
+
+
+@lru_cache(maxsize=32)
+def _k_weighting(rate):
+    sos = _bilinear_k_weighting(rate)
+    if rate < _FIT_BELOW_HZ:
+        sos = _fitted_k_weighting(sos, rate)
+    return sos
+
+
+def _bilinear_k_weighting(rate):
     f0, q, vh, vb = _SHELF
     k = math.tan(math.pi * f0 / rate)
     a0 = 1.0 + k / q + k * k
@@ -148,6 +176,28 @@ def k_weighting(rate_hz):
     g = gain / a0
     stage2 = [g, -2.0 * g, g, 1.0, 2.0 * (k * k - 1.0) / a0, (1.0 - k / q + k * k) / a0]
     return np.array([stage1, stage2], dtype=np.float64)
+
+
+def _fitted_k_weighting(start, rate):
+    """Refine ``start`` (2 x 6 sos) so its log magnitude fits the 48 kHz table's."""
+    freqs = np.geomspace(_FIT_LOW_HZ, _FIT_TOP_FRACTION * rate, _FIT_POINTS)
+    _, reference = signal.sosfreqz(_bilinear_k_weighting(_TABLE_RATE_HZ), worN=freqs, fs=_TABLE_RATE_HZ)
+    target = 20.0 * np.log10(np.abs(reference))
+
+    def sections(p):
+        return np.array([[p[0], p[1], p[2], 1.0, p[3], p[4]], [p[5], p[6], p[7], 1.0, p[8], p[9]]])
+
+    def error(p):
+        _, h = signal.sosfreqz(sections(p), worN=freqs, fs=rate)
+        return 20.0 * np.log10(np.abs(h)) - target
+
+    p0 = np.r_[start[0, :3], start[0, 4:], start[1, :3], start[1, 4:]]
+    fit = optimize.least_squares(error, p0, x_scale="jac", xtol=1e-15, ftol=1e-15, gtol=1e-15)
+    sos = sections(fit.x)
+    for row in sos:
+        if np.abs(np.roots(row[3:])).max() >= 1.0:   # never expected; keep the stable start
+            return start
+    return sos
 
 
 def _validate_loudness_rate(rate_hz):
@@ -395,112 +445,25 @@ _ANNEX2_PHASE1 = (-0.0291748046875, 0.0292968750000, -0.0517578125000, 0.0891113
                   -0.1665039062500, 0.4650878906250, 0.7797851562500, -0.2003173828125,
                   0.1015625000000, -0.0582275390625, 0.0330810546875, -0.0189208984375)
 _ANNEX2_PHASES = np.array([_ANNEX2_PHASE0, _ANNEX2_PHASE1, _ANNEX2_PHASE1[::-1], _ANNEX2_PHASE0[::-1]])
-_TAPS_PER_PHASE = _ANNEX2_PHASES.shape[1]
-_HISTORY = _TAPS_PER_PHASE - 1
-_ROW_FRAMES = 64          # outputs per row of the matrix product (see _PolyphasePeak)
-_ROWS_PER_PRODUCT = 4096  # rows per matrix product: bounds the scratch memory (about 4 MB)
 
 
 def true_peak_oversampling(rate_hz):
-    """Over-sampling factor of the true-peak meter at ``rate_hz``: 4, 2 or 1.
+    """Over-sampling factor of the true-peak meter at ``rate_hz``: 16 at every rate.
 
-    4 below 88.2 kHz (BS.1770-4 Annex 2 describes 4x from 48 kHz to 192 kHz; lower rates use
-    the same filter in normalised frequency), 2 from 88.2 kHz and 1 from 176.4 kHz, so that from
-    44.1 kHz up the interpolated points are at most 1/176.4 kHz apart.
+    The interpolator (:mod:`webapp.dsp.oversample`) is flat to 0.475 fs in normalised
+    frequency, so one design serves every rate from 8 kHz to 768 kHz.
     """
-    rate = validate_rate(rate_hz, field="rate_hz")
-    if rate < 88200:
-        return 4
-    if rate < 176400:
-        return 2
-    return 1
+    validate_rate(rate_hz, field="rate_hz")
+    return OVERSAMPLING
 
 
-def annex2_interpolator(oversampling):
-    """Phase filters (``oversampling`` x 12) of the BS.1770-4 Annex 2 example interpolator.
+def annex2_interpolator():
+    """Phase filters (4 x 12) of the BS.1770-4 Annex 2 example interpolator, for comparison.
 
-    For 4 the four phases of the example filter; for 2 its phases 0 and 2 (every other tap of
-    the 48-tap prototype, a 2x interpolator with the same passband); 1 has no phases.
+    The meter does not use them: near Nyquist the example reads low (its passband ends about
+    0.4 fs); see :mod:`webapp.dsp.oversample` for the interpolator used.
     """
-    if oversampling == 4:
-        return _ANNEX2_PHASES.copy()
-    if oversampling == 2:
-        return _ANNEX2_PHASES[[0, 2]].copy()
-    if oversampling == 1:
-        return np.zeros((0, _TAPS_PER_PHASE))
-    raise ParameterError(f"oversampling must be 1, 2 or 4, got {oversampling!r}", "oversampling")
-
-
-class _PolyphasePeak:
-    """Largest |output| per channel of a polyphase interpolator fed block by block.
-
-    ``P`` outputs (one per phase) follow each input frame n: ``y_p[n] = sum_i h_p[i] x[n - i]``.
-    Frames are taken in rows of R = 64 at fixed positions of the stream (a shorter remainder
-    waits for the next block, so any split gives the same rows). The R P outputs of a row come
-    from its R frames and the 11 before them: rows of R + 11 inputs (a strided view, rows R
-    apart, gathered contiguous) times one banded (R + 11) x (R P) matrix, one BLAS product in
-    float32 (relative error about 1e-7, i.e. 1e-6 dB).
-
-    A row can only raise the peak if ``gain * max|x|`` over its inputs reaches the peak known
-    so far (``gain`` = the largest sum of |taps| of a phase, about 2.0): other rows are skipped,
-    which is exact, and on programme material leaves most rows out.
-    """
-
-    def __init__(self, phases, channels):
-        self.phases = phases.shape[0]
-        self.channels = channels
-        rows = _ROW_FRAMES
-        band = np.zeros((rows + _HISTORY, rows, self.phases))
-        for j in range(rows):
-            for i in range(_TAPS_PER_PHASE):
-                band[j + _HISTORY - i, j, :] = phases[:, i]
-        self._band = band.reshape(rows + _HISTORY, rows * self.phases).astype(np.float32)
-        self._gain = float(np.abs(phases).sum(axis=1).max())
-        self._history = np.zeros((channels, _HISTORY), dtype=np.float32)  # before the pending frames
-        self._pending = np.zeros((channels, 0), dtype=np.float32)         # fewer than R frames
-
-    def feed(self, x, floor):
-        """Take frames x channels ``x``; return the per-channel peak of the rows it completes.
-
-        ``floor`` is a per-channel value the final peak is known to reach (rows that cannot
-        beat it are skipped).
-        """
-        data = np.concatenate([self._history, self._pending, x.T.astype(np.float32)], axis=1)
-        count = (data.shape[1] - _HISTORY) // _ROW_FRAMES
-        used = count * _ROW_FRAMES
-        self._history = data[:, used:used + _HISTORY].copy()
-        self._pending = data[:, used + _HISTORY:].copy()
-        return self._rows_peak(data, count, floor)
-
-    def ring_out_peak(self, floor):
-        """Peak of the outputs still to come if the signal fell silent now (state unchanged)."""
-        frames = self._pending.shape[1] + _HISTORY
-        count = -(-frames // _ROW_FRAMES)
-        data = np.zeros((self.channels, _HISTORY + count * _ROW_FRAMES), dtype=np.float32)
-        data[:, :_HISTORY + self._pending.shape[1]] = np.concatenate([self._history, self._pending], axis=1)
-        return self._rows_peak(data, count, floor)
-
-    def _rows_peak(self, data, count, floor):
-        peak = np.zeros(self.channels)
-        if count == 0:
-            return peak
-        rows, width = _ROW_FRAMES, _ROW_FRAMES + _HISTORY
-        magnitude = np.abs(data)
-        own = magnitude[:, _HISTORY:_HISTORY + count * rows].reshape(self.channels, count, rows).max(axis=2)
-        before = np.concatenate([magnitude[:, :_HISTORY].max(axis=1, keepdims=True), own[:, :-1]], axis=1)
-        bound = self._gain * np.maximum(own, before)
-        # the margin keeps float32 rounding from making the skip pattern matter
-        keep = (bound > 0) & (bound >= np.asarray(floor)[:, None] * (1.0 - 1e-4))
-        channel, row = np.nonzero(keep)
-        item = data.strides[1]
-        windows = np.lib.stride_tricks.as_strided(
-            data, shape=(self.channels, count, width), strides=(data.strides[0], rows * item, item),
-            writeable=False)
-        for start in range(0, channel.size, _ROWS_PER_PRODUCT):
-            ch = channel[start:start + _ROWS_PER_PRODUCT]
-            out = windows[ch, row[start:start + _ROWS_PER_PRODUCT]] @ self._band
-            np.maximum.at(peak, ch, np.maximum(out.max(axis=1), -out.min(axis=1)))
-        return peak
+    return _ANNEX2_PHASES.copy()
 
 
 @dataclass(frozen=True)
@@ -516,7 +479,7 @@ class TruePeakResult:
     channel_true_peak_dbtp, channel_sample_peak_dbfs : tuple of float
         The same per channel.
     oversampling : int
-        Over-sampling factor used (4, 2 or 1).
+        Over-sampling factor used (16).
     """
 
     true_peak_dbtp: float
@@ -538,31 +501,27 @@ class TruePeakMeter:
 
     Notes
     -----
-    The signal is over-sampled by :func:`true_peak_oversampling` (4 below 88.2 kHz, 2 up to
-    176.4 kHz, none above) with the Annex 2 example interpolator (:func:`annex2_interpolator`),
-    taken at every rate as the same filter in normalised frequency: passband ripple about
-    +-0.11 dB up to 0.4 fs, -1.25 dB at 0.45 fs, -6 dB at fs/2. The true peak is the largest
-    absolute value of the over-sampled signal and of the samples themselves: the symmetric
-    48-tap prototype puts its outputs at 1/8, 3/8, 5/8 and 7/8 of a sample period, never on a
-    sample, so without the samples a lone full-scale sample would read -0.25 dBTP. The signal
-    is taken as silent before the first block and after the last one (``result()`` lets the
-    filter ring out without changing the state). An abrupt start or stop is a step that the
-    band-limited reconstruction overshoots, and the meter reports that overshoot.
+    The signal is over-sampled 16x by the two-stage interpolator of
+    :mod:`webapp.dsp.oversample` (a 64-tap equiripple half-band, then an 8-phase Kaiser
+    windowed sinc), the same design at every rate: within about 0.022 dB of the band-limited
+    reconstruction from 0 to 0.475 fs, plus a sampling-grid error of at most 0.038 dB there
+    (``1 - cos(pi f / (16 fs))``). BS.1770-4 Annex 2 asks for at least 4x and allows a better
+    interpolator than its example, which reads up to 0.5 dB low near Nyquist. The grid
+    includes the samples themselves, so the true peak is never below the sample peak. The
+    signal is taken as silent before the first block and after the last one (``result()``
+    lets the filter ring out without changing the state): an abrupt start or stop is a step
+    that the band-limited reconstruction overshoots, and the meter reports that overshoot.
 
-    A grid of points can read low between them (the sampling-grid error): a sine of frequency f
-    whose peak falls halfway between two points T apart reads ``cos(pi f T)``, e.g. 0.17 dB low
-    at fs/4 with 4x (before the passband gain of the phase filters, +0.22 dB there) and up to
-    0.47 dB low for 20 kHz at 48 kHz and at 192 kHz alike. EBU Tech 3341 allows +0.2 / -0.4 dB
-    on its test tones (fs/4 and below). Cost: 12 multiply-adds per output in a float32 matrix
-    product, with rows that cannot raise the peak skipped (see ``benchmarks/bench_meter_chain.py``).
+    Cost: about 300 multiply-adds per frame and channel in float32 matrix products (relative
+    error about 1e-7, i.e. 1e-6 dB); rows that cannot raise the peak skip the second stage
+    (see ``benchmarks/bench_meters.py``).
     """
 
     def __init__(self, *, rate_hz, channels):
         self.rate_hz = validate_rate(rate_hz, field="rate_hz")
         self.channels = _validate_channels(channels)
         self.oversampling = true_peak_oversampling(self.rate_hz)
-        phases = annex2_interpolator(self.oversampling)
-        self._poly = _PolyphasePeak(phases, self.channels) if phases.shape[0] else None
+        self._poly = PeakInterpolator(self.channels, peak_only=True)
         self._true = np.zeros(self.channels)
         self._sample = np.zeros(self.channels)
 
@@ -572,15 +531,18 @@ class TruePeakMeter:
         if x.shape[0] == 0:
             return
         self._sample = np.maximum(self._sample, np.abs(x).max(axis=0))
-        if self._poly is not None:
-            floor = np.maximum(self._true, self._sample)
-            self._true = np.maximum(self._true, self._poly.feed(x, floor))
+        self._take(self._poly.process(x, floor=self._true, running=True))
+
+    def _take(self, envelope):
+        if envelope.shape[0]:
+            self._true = np.maximum(self._true, envelope.max(axis=0))
 
     def result(self):
         """Return the :class:`TruePeakResult` of all blocks so far (the meter keeps running)."""
         true = np.maximum(self._true, self._sample)
-        if self._poly is not None:
-            true = np.maximum(true, self._poly.ring_out_peak(true))
+        rest = copy.deepcopy(self._poly).finish(floor=self._true, running=True)
+        if rest.shape[0]:
+            true = np.maximum(true, rest.max(axis=0))
         channel_true = tuple(_amplitude_db(v) for v in true)
         channel_sample = tuple(_amplitude_db(v) for v in self._sample)
         return TruePeakResult(

@@ -7,10 +7,10 @@ rational factor ``up/down`` (L/M), with ``fs_out = fs_in * up / down`` exactly.
 from dataclasses import dataclass
 from fractions import Fraction
 from math import gcd
-import numbers
 import re
 
 from .errors import ParameterError
+from .numbers import whole_number
 
 __all__ = ["MIN_RATE_HZ", "MAX_RATE_HZ", "Route", "validate_rate", "route", "SpeedChange",
            "speed_change", "parse_speed", "parse_rate", "true_rate_change", "MAX_SPEED_TERM"]
@@ -50,22 +50,8 @@ def validate_rate(rate_hz, *, field="rate"):
     ParameterError
         If the rate is not a whole number, or lies outside 1000 to 768000 Hz.
     """
-    rule = f"{field} must be an integer from {MIN_RATE_HZ} to {MAX_RATE_HZ} Hz"
-    if isinstance(rate_hz, bool):
-        raise ParameterError(f"{rule}, got {rate_hz!r}", field)
-    if isinstance(rate_hz, str):
-        try:
-            rate_hz = float(rate_hz.strip())
-        except ValueError:
-            raise ParameterError(f"{rule}, got {rate_hz!r}", field) from None
-    if not isinstance(rate_hz, numbers.Real) or rate_hz != rate_hz:
-        raise ParameterError(f"{rule}, got {rate_hz!r}", field)
-    if float(rate_hz) != int(rate_hz):
-        raise ParameterError(f"{rule}, got {rate_hz!r}", field)
-    value = int(rate_hz)
-    if not MIN_RATE_HZ <= value <= MAX_RATE_HZ:
-        raise ParameterError(f"{rule}, got {value}", field)
-    return value
+    rule = f"an integer from {MIN_RATE_HZ} to {MAX_RATE_HZ} Hz"
+    return whole_number(rate_hz, field, low=MIN_RATE_HZ, high=MAX_RATE_HZ, text=True, rule=rule)
 
 
 def route(fs_in, fs_out):

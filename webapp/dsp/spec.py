@@ -15,9 +15,9 @@ The spec is the single source of defaults; JSON keys equal these field names.
 """
 
 from dataclasses import dataclass, asdict, fields, replace
-import math
 
 from .errors import ParameterError
+from .numbers import finite_number
 from .rates import Route
 
 __all__ = ["Spec", "Mask", "PHASES", "METHODS", "ARITHMETICS", "STAGE_CHOICES", "PRESETS",
@@ -105,7 +105,9 @@ class Mask:
         if spec.stopband_hz is not None:
             fs = float(spec.stopband_hz)
         elif spec.allow_transition_aliasing:
-            fs = low - fp
+            # never past the filter's own Nyquist (fs_in * up / 2): for a route between equal
+            # rates lower rate - passband lies above it
+            fs = min(low - fp, route.prototype_rate / 2.0)
         else:
             fs = nyq
         if fs <= fp:
@@ -115,6 +117,10 @@ class Mask:
             raise ParameterError(
                 f"stopband_hz must be at most lower rate - passband_hz = {low - fp:g} Hz, or "
                 f"aliases land in the passband; got {fs:g}", "stopband_hz")
+        if fs > route.prototype_rate / 2.0:
+            raise ParameterError(
+                f"stopband_hz must be at most half the filter's rate ({route.prototype_rate / 2:g}"
+                f" Hz for {route.fs_in} -> {route.fs_out} Hz), got {fs:g}", "stopband_hz")
         return cls(route.fs_in, route.fs_out, route.up, route.down, float(fp), float(fs),
                    float(spec.ripple_db), float(spec.attenuation_db))
 
@@ -137,11 +143,7 @@ def _check_choice(name, value, choices):
 
 
 def _check_number(name, value, low, high, unit):
-    ok = isinstance(value, (int, float)) and not isinstance(value, bool)
-    if not ok or not math.isfinite(value) or not low <= value <= high:
-        unit = f" {unit}" if unit else ""
-        raise ParameterError(f"{name} must be a number from {low:g} to {high:g}{unit}, got {value!r}",
-                             name)
+    finite_number(value, name, low=low, high=high, unit=unit)
 
 
 # Presets are named after the work they serve. Limits are common practice for the trade
@@ -206,9 +208,4 @@ def spec_from_dict(data, *, base=None):
 
 
 def _as_float(name, value):
-    if isinstance(value, bool):
-        raise ParameterError(f"{name} must be a number, got {value!r}", name)
-    try:
-        return float(value)
-    except (TypeError, ValueError):
-        raise ParameterError(f"{name} must be a number, got {value!r}", name) from None
+    return finite_number(value, name, text=True)

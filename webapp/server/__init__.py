@@ -15,6 +15,10 @@ Config (``app.config``; defaults below, ``instance/config.py`` or ``test_config`
 ``ANALYSE_SYNC_MAX_S``  uploads up to this long are measured before the upload answers; longer
                         ones are measured in the background (default 600 s).
 ``SSE_INTERVAL_S``      progress event interval (default 0.25 s).
+``SSE_MAX_STREAMS``     progress streams open at once (default 6; waitress runs 16 threads);
+                        more are answered 429 with Retry-After and the page polls.
+``SSE_MAX_S``           a progress stream ends after this long (default 600 s); the browser
+                        reconnects.
 """
 
 from collections import OrderedDict
@@ -51,6 +55,9 @@ class State:
         from webapp.designs import DesignCache
         self.config = app.config
         self.store = Store(app.instance_path)
+        swept = self.store.sweep_partials()
+        if swept:
+            log.warning("removed %d partial file(s) left by a crash", len(swept))
         self.interrupted = self.store.recover_interrupted()
         if self.interrupted:
             log.warning("marked %d interrupted conversion(s) failed", len(self.interrupted))
@@ -63,6 +70,8 @@ class State:
                                              thread_name_prefix="rateferry-analysis")
         self.demo_id = None
         self.demo_pair = None
+        from .streams import StreamSlots
+        self.streams = StreamSlots(app.config["SSE_MAX_STREAMS"])
 
     def _on_result(self, conversion_id, result):
         """Keep the result for design sheets; write the recipe beside the output."""
@@ -125,6 +134,8 @@ def create_app(test_config=None, *, instance_path=None):
         EXCERPT_MAX_S=60.0,
         ANALYSE_SYNC_MAX_S=600.0,
         SSE_INTERVAL_S=0.25,
+        SSE_MAX_STREAMS=6,
+        SSE_MAX_S=600.0,
         VERSION=__version__,
     )
     if test_config is None:
@@ -145,8 +156,9 @@ def create_app(test_config=None, *, instance_path=None):
     errors.register_error_handlers(app)
     security.init_security(app)
 
-    from . import api, drift_api, page
+    from . import api, batches, drift_api, page
     app.register_blueprint(api.bp)
+    app.register_blueprint(batches.bp)
     app.register_blueprint(drift_api.bp)
     app.register_blueprint(page.bp)
 

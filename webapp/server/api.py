@@ -25,17 +25,18 @@ from .db import get_db, state
 from .errors import ApiError
 from .library import measure, probe_figures
 from .params import (choice, conversion_or_404, integer, json_body, number, rate,
-                     recording_or_404, spec_input)
+                     recording_file_or_410, recording_or_404, spec_input)
 from .uploads import UPLOAD_EXTENSIONS, discard_incoming, display_name, take_upload, \
     upload_extension
 
-__all__ = ["bp", "URLS", "COMMON_RATES_HZ", "OUTPUT_FORMAT_EXTENSIONS", "submit_conversion"]
+__all__ = ["bp", "URLS", "COMMON_RATES_HZ", "OUTPUT_FORMAT_EXTENSIONS"]
 
 bp = Blueprint("api", __name__, url_prefix="/api")
 
 #: URL templates the page reads from its config element.
 URLS = {
     "health": "/api/health",
+    "openapi": "/api/openapi.json",
     "options": "/api/options",
     "recordings": "/api/recordings",
     "recording": "/api/recordings/{id}",
@@ -62,6 +63,10 @@ URLS = {
     "drift_listen_audio": "/api/drift/listen/{id}/{kind}",
     "drift_conversions": "/api/drift/conversions",
     "clear": "/api/maintenance/clear",
+    "batches": "/api/batches",
+    "batch": "/api/batches/{id}",
+    "batch_cancel": "/api/batches/{id}/cancel",
+    "batch_zip": "/api/batches/{id}/zip",
     "plotly": "/static/vendor/plotly.min.js",
 }
 
@@ -104,6 +109,17 @@ def _stem(name):
 @bp.get("/health")
 def health():
     return _json(dict(status="ok", version=__version__))
+
+
+@bp.get("/openapi.json")
+def openapi():
+    """The OpenAPI 3.1 description of this API (webapp/server/openapi.json)."""
+    return current_app.response_class(_openapi_text(), mimetype="application/json")
+
+
+def _openapi_text():
+    with open(os.path.join(os.path.dirname(__file__), "openapi.json"), "rb") as f:
+        return f.read()
 
 
 @bp.get("/options")
@@ -218,7 +234,7 @@ def get_recording(recording_id):
 
 @bp.get("/recordings/<recording_id>/audio")
 def recording_audio(recording_id):
-    rec = recording_or_404(recording_id)
+    rec = recording_file_or_410(recording_or_404(recording_id))
     return send_file(rec["path"], mimetype=_MIMETYPES.get(rec["format"],
                                                           "application/octet-stream"),
                      conditional=True, download_name=rec["name"])
@@ -334,7 +350,7 @@ def create_audit():
 @bp.post("/spectra")
 def create_spectra():
     data = json_body()
-    rec = recording_or_404(data.get("recording_id"))
+    rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
     spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
     max_s = current_app.config["EXCERPT_MAX_S"]
     start_s = number(data, "start_s", low=0.0, unit="s")
@@ -375,6 +391,46 @@ def _public_conversion(conv, *, figures=True):
     return out
 
 
+def _readable(rec):
+    if rec.get("analysis") == "failed":
+        err = rec.get("analysis_error") or {}
+        raise ParameterError(err.get("message", "the recording can't be read"), "recording_id")
+    return rec
+
+
+def _prepare_conversion(rec, spec, fs_in, fs_out, fmt, delivery, design_id=None):
+    """(conversion id, job, design id): checked and decided, nothing queued yet."""
+    st = state()
+    plan = st.cache.conversion_plan(spec, fs_in, fs_out)   # one design per route, cached
+    if design_id is None:
+        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
+    cid = new_id()
+    job = jobs.prepare(rec["path"], st.store.output_path(cid, OUTPUT_FORMAT_EXTENSIONS[fmt]),
+                       fs_out=fs_out, spec=spec, delivery=delivery, plan=plan)
+    return cid, job, design_id
+
+
+def _queue_conversion(rec, cid, job, design_id, fmt, *, spec, delivery, recipe=None,
+                      stem=None):
+    """Add the conversion to the store and queue it on the pool; returns its row. Every
+    conversion endpoint (plain, recipe re-run, time base) queues through here; ``stem`` names
+    the download (default: the recording's name)."""
+    conv = get_db().add_conversion(
+        conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=job.fs_in,
+        fs_out=job.fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
+        output_path=job.target, download_name=job.download_name(stem or _stem(rec["name"])),
+        frames_total=job.frames_total)
+
+    def run(progress, cancel):
+        if recipe is not None:
+            return jobs.rerun(recipe, job.source, job.target, progress=progress, cancel=cancel,
+                              job=job).result
+        return jobs.run(job, progress=progress, cancel=cancel)
+
+    state().pool.submit(cid, run)
+    return conv
+
+
 def _recipe_job(data, rec, target_for):
     """(job, design inputs) of a recipe re-run: the recipe's spec, rate, delivery, block size
     and output format; the recording must be the recipe's source (checked before any work)."""
@@ -392,47 +448,22 @@ def _recipe_job(data, rec, target_for):
 @bp.post("/conversions")
 def create_conversion():
     data = json_body()
-    rec = recording_or_404(data.get("recording_id"))
-    if rec.get("analysis") == "failed":
-        err = rec.get("analysis_error") or {}
-        raise ParameterError(err.get("message", "the recording can't be read"), "recording_id")
-    st = state()
-    cid = new_id()
+    rec = _readable(recording_file_or_410(recording_or_404(data.get("recording_id"))))
     recipe = None
     if data.get("recipe") is not None:
-        recipe, job, fmt = _recipe_job(data, rec, lambda ext: st.store.output_path(cid, ext))
+        cid = new_id()
+        recipe, job, fmt = _recipe_job(data, rec,
+                                       lambda ext: state().store.output_path(cid, ext))
         spec, delivery = recipe.spec, recipe.delivery
         design_id = _store_design(spec, job.fs_in, job.fs_out, job.plan.figures())
     else:
         spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
         fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
         delivery = Delivery.from_dict(data.get("delivery"))
-        plan = st.cache.conversion_plan(spec, fs_in, fs_out)
-        if design_id is None:
-            design_id = _store_design(spec, fs_in, fs_out, plan.figures())
-        job = jobs.prepare(rec["path"], st.store.output_path(cid, OUTPUT_FORMAT_EXTENSIONS[fmt]),
-                           fs_out=fs_out, spec=spec, delivery=delivery, plan=plan)
-    return submit_conversion(cid, rec, job, fmt=fmt, spec=spec, delivery=delivery,
-                             design_id=design_id, recipe=recipe)
-
-
-def submit_conversion(cid, rec, job, *, fmt, spec, delivery, design_id, recipe=None, stem=None):
-    """Record a prepared job as conversion ``cid`` of recording ``rec`` and queue it; the 202
-    answer every conversion endpoint gives (progress, downloads and history follow)."""
-    conv = get_db().add_conversion(
-        conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=job.fs_in,
-        fs_out=job.fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
-        output_path=job.target,
-        download_name=job.download_name(stem or _stem(rec["name"])),
-        frames_total=job.frames_total)
-
-    def run(progress, cancel):
-        if recipe is not None:
-            return jobs.rerun(recipe, job.source, job.target, progress=progress, cancel=cancel,
-                              job=job).result
-        return jobs.run(job, progress=progress, cancel=cancel)
-
-    state().pool.submit(cid, run)
+        cid, job, design_id = _prepare_conversion(rec, spec, fs_in, fs_out, fmt, delivery,
+                                                  design_id)
+    conv = _queue_conversion(rec, cid, job, design_id, fmt, spec=spec, delivery=delivery,
+                             recipe=recipe)
     return _json(_public_conversion(conv), 202)
 
 
@@ -453,13 +484,15 @@ def conversion_events(conversion_id):
     conv = conversion_or_404(conversion_id)
     store = state().store
     interval = float(current_app.config["SSE_INTERVAL_S"])
+    ends = time.monotonic() + float(current_app.config["SSE_MAX_S"])
     cid = conv["id"]
+    release = state().streams.take()   # 429 + Retry-After when all stream slots are taken
 
     def stream():
         last, quiet_since = None, time.monotonic()
         with store.open() as db:
             yield "retry: 1000\n\n"
-            while True:
+            while time.monotonic() < ends:
                 c = db.get_conversion(cid)
                 if c is None:
                     return
@@ -477,8 +510,10 @@ def conversion_events(conversion_id):
                     quiet_since = time.monotonic()
                 time.sleep(interval)
 
-    return Response(stream(), mimetype="text/event-stream",
-                    headers={"Cache-Control": "no-cache", "X-Accel-Buffering": "no"})
+    response = Response(stream(), mimetype="text/event-stream",
+                        headers={"Cache-Control": "no-cache", "X-Accel-Buffering": "no"})
+    response.call_on_close(release)
+    return response
 
 
 @bp.post("/conversions/<conversion_id>/cancel")
@@ -668,13 +703,13 @@ def create_renditions():
     conversion_id = data.get("conversion_id")
     if conversion_id is not None:
         conv = _done_or_409(conversion_or_404(conversion_id))
-        rec = recording_or_404(conv["recording_id"])
+        rec = recording_file_or_410(recording_or_404(conv["recording_id"]))
         plan = st.cache.conversion_plan(spec_module.Spec(**conv["spec"]), conv["fs_in"],
                                         conv["fs_out"])
         converted = dict(path=conv["output_path"], plan=plan)
         conversion_id = conv["id"]
     else:
-        rec = recording_or_404(data.get("recording_id"))
+        rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
         spec, fs_in, fs_out, _ = spec_input(data, fs_in=rec["rate_hz"])
         converted = dict(plan=st.cache.conversion_plan(spec, fs_in, fs_out))
     rid = new_id()

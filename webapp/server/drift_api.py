@@ -16,10 +16,12 @@ from webapp.dsp.timebase import timebase_design
 from webapp.jsontools import jsonable
 from webapp.store import new_id
 
-from .api import OUTPUT_FORMAT_EXTENSIONS, _json, _stem, _store_design, _url, submit_conversion
+from .api import (OUTPUT_FORMAT_EXTENSIONS, _json, _public_conversion, _queue_conversion,
+                  _readable, _stem, _store_design, _url)
 from .db import get_db, state
 from .errors import ApiError
-from .params import choice, json_body, number, recording_or_404, spec_input
+from .params import (choice, json_body, number, recording_file_or_410, recording_or_404,
+                     spec_input)
 
 __all__ = ["bp", "LISTEN_KINDS"]
 
@@ -32,9 +34,11 @@ def _recording(data, name):
     if data.get(name) is None:
         raise ParameterError(f"{name} is required (a recording id)", name)
     try:
-        return recording_or_404(data[name])
+        return _readable(recording_file_or_410(recording_or_404(data[name])))
     except ApiError as exc:
         raise ApiError(exc.status, exc.message, name) from None
+    except ParameterError as exc:
+        raise ParameterError(exc.message, name) from None
 
 
 def _pair(data):
@@ -119,5 +123,6 @@ def convert():
         trk["path"], st.store.output_path(cid, OUTPUT_FORMAT_EXTENSIONS[fmt]), m, spec=spec,
         delivery=delivery, plan=plan)
     design_id = _store_design(spec, fs_in, fs_out, job.plan.figures())
-    return submit_conversion(cid, trk, job, fmt=fmt, spec=spec, delivery=delivery,
-                             design_id=design_id, stem=f"{_stem(trk['name'])}_aligned")
+    conv = _queue_conversion(trk, cid, job, design_id, fmt, spec=spec, delivery=delivery,
+                             stem=f"{_stem(trk['name'])}_aligned")
+    return _json(_public_conversion(conv), 202)

@@ -13,7 +13,7 @@ from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 from webapp.dsp.errors import RateferryError
 
-__all__ = ["ApiError", "error_response", "register_error_handlers"]
+__all__ = ["ApiError", "error_response", "register_error_handlers", "too_large_message"]
 
 log = logging.getLogger(__name__)
 
@@ -21,11 +21,18 @@ log = logging.getLogger(__name__)
 class ApiError(Exception):
     """An error with an HTTP status, a message (the rule and the value) and a field."""
 
-    def __init__(self, status, message, field=None):
+    def __init__(self, status, message, field=None, *, headers=None):
         super().__init__(message)
         self.status = int(status)
         self.message = message
         self.field = field
+        self.headers = dict(headers or {})
+
+
+def too_large_message(limit):
+    """The one 413 message, from the app and from waitress (:mod:`.wsgi`) alike."""
+    return (f"the upload is larger than the limit of {limit} bytes" if limit
+            else "the upload is too large")
 
 
 def error_response(status, message, field=None):
@@ -39,7 +46,9 @@ def register_error_handlers(app):
 
     @app.errorhandler(ApiError)
     def _api_error(exc):
-        return error_response(exc.status, exc.message, exc.field)
+        response = error_response(exc.status, exc.message, exc.field)
+        response.headers.update(exc.headers)
+        return response
 
     @app.errorhandler(RateferryError)
     def _rateferry_error(exc):
@@ -47,10 +56,8 @@ def register_error_handlers(app):
 
     @app.errorhandler(RequestEntityTooLarge)
     def _too_large(exc):
-        limit = app.config.get("MAX_CONTENT_LENGTH")
-        text = f"the upload is larger than the limit of {limit} bytes" if limit else \
-            "the upload is too large"
-        return error_response(413, text, "file")
+        return error_response(413, too_large_message(app.config.get("MAX_CONTENT_LENGTH")),
+                              "file")
 
     @app.errorhandler(HTTPException)
     def _http_error(exc):

@@ -4,12 +4,13 @@ Every helper raises :class:`ParameterError` (400) or :class:`ApiError` naming th
 value, so a view never sees a half-parsed request.
 """
 
-import math
-import numbers
+import os
 
 from flask import request
 
 from webapp.dsp.errors import ParameterError
+from webapp.dsp.numbers import finite_number, shown, whole_number
+from webapp.jsontools import loads_checked
 from webapp.dsp.rates import validate_rate
 from webapp.dsp.spec import DEFAULT_PRESET, Spec, preset, spec_from_dict
 
@@ -17,58 +18,42 @@ from .db import get_db
 from .errors import ApiError
 
 __all__ = ["json_body", "number", "integer", "choice", "rate", "spec_input", "recording_or_404",
+           "recording_file_or_410",
            "conversion_or_404", "design_or_404"]
 
 
 def json_body():
-    """The request's JSON object (an empty body reads as {})."""
-    if not request.get_data(cache=True):
+    """The request's JSON object (an empty body reads as {}), parsed with a depth limit."""
+    raw = request.get_data(cache=True)
+    if not raw:
         return {}
-    data = request.get_json(silent=True)
+    data = loads_checked(raw, name="the request body")
     if not isinstance(data, dict):
         raise ParameterError("the request body must be a JSON object", "body")
     return data
 
 
 def number(data, name, *, default=None, low=None, high=None, unit="", required=False):
-    """A finite float from ``data[name]`` within [low, high]."""
+    """A finite float from ``data[name]`` within [low, high] (the rule of
+    :func:`webapp.dsp.numbers.finite_number`)."""
     value = data.get(name, default)
     if value is None:
         if required:
             raise ParameterError(f"{name} is required", name)
         return None
-    if isinstance(value, bool) or not isinstance(value, numbers.Real) or \
-            not math.isfinite(value):
-        raise ParameterError(f"{name} must be a finite number{' of ' + unit if unit else ''}, "
-                             f"got {value!r}", name)
-    value = float(value)
-    if (low is not None and value < low) or (high is not None and value > high):
-        raise ParameterError(f"{name} must be {_range_text(low, high, unit)}, got {value:g}", name)
-    return value
-
-
-def _range_text(low, high, unit=""):
-    u = f" {unit}" if unit else ""
-    if low is not None and high is not None:
-        return f"from {low:g} to {high:g}{u}"
-    if low is not None:
-        return f"at least {low:g}{u}"
-    return f"at most {high:g}{u}"
+    return finite_number(value, name, low=low, high=high, unit=unit)
 
 
 def integer(data, name, *, default=None, low=None, high=None, required=False):
+    """A whole number from ``data[name]`` within [low, high]."""
     value = data.get(name, default)
     if value is None:
         if required:
             raise ParameterError(f"{name} is required", name)
         return None
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
-        raise ParameterError(f"{name} must be a whole number, got {value!r}", name)
-    value = int(value)
-    if (low is not None and value < low) or (high is not None and value > high):
-        raise ParameterError(f"{name} must be a whole number {_range_text(low, high)}, got "
-                             f"{value}", name)
-    return value
+    if isinstance(value, float):
+        raise ParameterError(f"{name} must be a whole number, got {shown(value)}", name)
+    return whole_number(value, name, low=low, high=high)
 
 
 def choice(data, name, choices, *, default=None):
@@ -105,6 +90,14 @@ def _row_or_404(kind, value, getter):
 
 def recording_or_404(recording_id):
     return _row_or_404("recording", recording_id, get_db().get_recording)
+
+
+def recording_file_or_410(rec):
+    """``rec`` when its stored file is still on disk; else 410 naming the recording."""
+    if not os.path.isfile(rec["path"]):
+        raise ApiError(410, f"the audio of recording '{rec['name']}' is no longer on disk (it was "
+                            "removed outside the app); upload it again", "recording_id")
+    return rec
 
 
 def conversion_or_404(conversion_id):

@@ -8,6 +8,8 @@ import webbrowser
 
 from webapp.dsp.errors import ParameterError
 
+from .wsgi import DEFAULT_THREADS, make_server
+
 __all__ = ["DEFAULT_PORT", "LOOPBACK_HOSTS", "serve", "port_is_free"]
 
 DEFAULT_PORT = 8765
@@ -29,7 +31,7 @@ def port_is_free(host, port):
 
 
 def serve(*, host="127.0.0.1", port=DEFAULT_PORT, open_browser=True, debug=False,
-          instance_path=None, threads=8):
+          instance_path=None, threads=DEFAULT_THREADS):
     """Run the web app until interrupted; returns an exit code.
 
     Parameters
@@ -69,9 +71,9 @@ def serve(*, host="127.0.0.1", port=DEFAULT_PORT, open_browser=True, debug=False
         if debug:
             app.run(host=bind, port=port, debug=True, use_reloader=False, threaded=True)
         else:
-            import waitress
-            waitress.serve(app, host=bind, port=port, threads=threads, ident="rateferry",
-                           channel_timeout=120)
+            server = make_server(app, host=bind, port=port, threads=threads,
+                                 channel_timeout=120)
+            server.run()
     except KeyboardInterrupt:
         pass
     finally:

@@ -26,6 +26,7 @@ UPLOAD_EXTENSIONS = {
     ".rf64": ".rf64", ".caf": ".caf", ".au": ".au", ".snd": ".au", ".mp3": ".mp3",
 }
 _NAME_MAX = 200
+_EXT_MAX = 16
 
 
 class UploadRequest(Request):
@@ -46,7 +47,11 @@ def display_name(filename):
     text = unicodedata.normalize("NFC", str(filename or ""))
     text = text.replace("\\", "/").split("/")[-1]
     text = "".join(ch for ch in text if ch.isprintable()).strip()
-    return text[:_NAME_MAX] or "upload"
+    if len(text) > _NAME_MAX:   # shorten the stem, keep the extension that decides the type
+        stem, ext = os.path.splitext(text)
+        ext = ext if len(ext) <= _EXT_MAX else ""
+        text = stem[:_NAME_MAX - len(ext)].rstrip() + ext
+    return text or "upload"
 
 
 def upload_extension(filename, field="file"):

@@ -1,0 +1,148 @@
+"""Meter and limiter cost per hour of stereo audio beside the cost of a conversion, in one run.
+
+Run: ``python benchmarks/bench_meters.py [--seconds 20] [--block 65536]`` (the runner,
+``python -m benchmarks``, takes its figures from ``main()``).
+
+Rows (seconds of work per hour of stereo audio, best of three, BLAS held to one thread as in
+the pipeline):
+
+* the conversion 44.1 -> 48 kHz with the "music_delivery" mask (120 dB, float64), the
+  reference the meters are weighed against;
+* the loudness meter (K-weighting and 100 ms sums);
+* the true-peak meter (16x) on programme-like noise (most rows skip the second stage) and on a
+  full-scale sine (none skip: the worst case);
+* the true-peak limiter (ceiling -1 dBTP) on the programme pushed 12 dB (it limits often) and
+  on the programme as it is (it seldom needs to);
+* the true peak as plain scipy would do it: ``scipy.signal.upfirdn`` 16x with the same
+  interpolator as one FIR, then the largest magnitude;
+* the 16-bit quantiser with TPDF and with shaped dither.
+
+Figures only; nothing here asserts a time.
+"""
+
+import argparse
+import os
+import sys
+import time
+
+import numpy as np
+from scipy import signal
+from threadpoolctl import threadpool_limits
+
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+
+from webapp.dsp.design import design  # noqa: E402
+from webapp.dsp.dither import Quantizer  # noqa: E402
+from webapp.dsp.limiter import TruePeakLimiter  # noqa: E402
+from webapp.dsp.loudness import LoudnessMeter, TruePeakMeter  # noqa: E402
+from webapp.dsp.oversample import prototype  # noqa: E402
+from webapp.dsp.polyphase import make_converter  # noqa: E402
+from webapp.dsp.spec import preset  # noqa: E402
+
+RATE_HZ = 48000
+SOURCE_RATE_HZ = 44100
+
+
+def best_of(runs, fn):
+    times = []
+    for _ in range(runs):
+        start = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - start)
+    return min(times)
+
+
+def programme(seconds, rate_hz, rng):
+    """Noise under a slow, deep envelope: peaks are rare, as in programme material."""
+    n = int(seconds * rate_hz)
+    t = np.arange(n) / rate_hz
+    envelope = (0.2 + np.abs(np.sin(2 * np.pi * 0.37 * t))) ** 3
+    return 0.1 * rng.standard_normal((n, 2)) * envelope[:, None]
+
+
+def streamed(make, x, block):
+    def run():
+        meter = make()
+        for i in range(0, x.shape[0], block):
+            meter.process(x[i:i + block])
+        meter.result()
+    return run
+
+
+def conversion(x, block):
+    d = design(preset("music_delivery"), SOURCE_RATE_HZ, RATE_HZ)
+
+    def run():
+        conv = make_converter(d, channels=2)
+        for i in range(0, x.shape[0], block):
+            conv.process(x[i:i + block])
+        conv.flush()
+    return run
+
+
+def limited(x, block):
+    def run():
+        limiter = TruePeakLimiter(rate_hz=RATE_HZ, channels=2, ceiling_dbtp=-1.0)
+        for i in range(0, x.shape[0], block):
+            limiter.process(x[i:i + block])
+        limiter.flush()
+    return run
+
+
+def plain_true_peak(x):
+    h, _ = prototype()
+    return lambda: np.abs(signal.upfirdn(h, x, 16, axis=0)).max(axis=0)
+
+
+def figures(seconds, block):
+    rng = np.random.default_rng(1)
+    x = programme(seconds, RATE_HZ, rng)
+    source = programme(seconds, SOURCE_RATE_HZ, rng)
+    sine = np.repeat(0.9 * np.sin(2 * np.pi * 997 * np.arange(x.shape[0]) / RATE_HZ)[:, None], 2, axis=1)
+    per_hour = 3600.0 / seconds
+    conv = best_of(3, conversion(source, block)) * per_hour
+    reference = "conversion 44.1 -> 48 kHz, music_delivery (120 dB, float64)"
+
+    def row(name, value):
+        return dict(name=name, value=value, unit="s/hour", reference=reference, reference_value=conv,
+                    ratio=value / conv)
+
+    rows = [
+        row("loudness meter", best_of(3, streamed(lambda: LoudnessMeter(rate_hz=RATE_HZ, channels=2),
+                                                  x, block)) * per_hour),
+        row("true-peak meter 16x, programme-like noise",
+            best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), x, block)) * per_hour),
+        row("true-peak meter 16x, full-scale sine (worst case)",
+            best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), sine, block)) * per_hour),
+        row("true-peak limiter, programme pushed 12 dB",
+            best_of(3, limited(x * 10 ** (12 / 20), block)) * per_hour),
+        row("true-peak limiter, programme as it is", best_of(3, limited(x, block)) * per_hour),
+    ]
+    short = x[: int(RATE_HZ * min(seconds, 5.0))]
+    rows.append(row("true peak, plain scipy upfirdn 16x (same FIR)",
+                    best_of(1, plain_true_peak(short)) * 3600.0 * RATE_HZ / short.shape[0]))
+    for dither in ("tpdf", "shaped"):
+        quantizer = Quantizer(bits="16", dither=dither, channels=2, rate_hz=RATE_HZ)
+        spent = best_of(1, lambda q=quantizer: q.process(short))
+        rows.append(row(f"16-bit quantiser, dither={dither}", spent * 3600.0 * RATE_HZ / short.shape[0]))
+    return rows
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--seconds", type=float, default=20.0)
+    parser.add_argument("--block", type=int, default=65536)
+    args = parser.parse_args(argv)
+    with threadpool_limits(limits=1, user_api="blas"):
+        rows = figures(args.seconds, args.block)
+    return dict(title=f"meters, limiter and quantiser, stereo {RATE_HZ} Hz, {args.seconds:g} s of "
+                      f"audio, blocks of {args.block} frames, BLAS 1 thread, seconds per hour of audio",
+                figures=rows)
+
+
+if __name__ == "__main__":
+    result = main()
+    print(result["title"])
+    for r in result["figures"]:
+        print(f"{r['name']:52s}  {r['value']:8.2f}   | {r['reference']}: {r['reference_value']:.2f} "
+              f"(x{r['ratio']:.2f})")
