@@ -248,8 +248,8 @@ def cmd_drift(args):
             job = _drift_job(args, track, m, spec, delivery)
             bar = ProgressBar(not args.quiet and not args.json, os.path.basename(track))
             result = jobs.run(job, progress=bar)
-            from .recipe import recipe_file_name, write_recipe
-            recipe_path = os.path.join(args.out, recipe_file_name(job.target))
+            from .recipe import write_recipe
+            recipe_path = _recipe_beside(job)
             write_recipe(result, recipe_path)
             report["corrected"] = dict(path=job.target, recipe=recipe_path,
                                        frames=result.frames_out, rate_hz=result.fs_out,
@@ -273,10 +273,16 @@ def _drift_job(args, track, measurement, spec, delivery):
                                      measurement, spec=spec, delivery=delivery,
                                      block_frames=args.block_frames)
     job = drift_files.named_in(job, args.out)
-    if os.path.lexists(job.target) and not args.replace:
-        raise ParameterError(f"'{job.target}' exists; a corrected track never replaces a file "
-                             "unless --replace is given", "out")
+    for path in (job.target, _recipe_beside(job)):
+        if os.path.lexists(path) and not args.replace:
+            raise ParameterError(f"'{path}' exists; a corrected track and its recipe never "
+                                 "replace a file unless --replace is given", "out")
     return job
+
+
+def _recipe_beside(job):
+    from .recipe import recipe_file_name
+    return os.path.join(os.path.dirname(job.target), recipe_file_name(job.target))
 
 
 def _compact(report):

@@ -140,8 +140,11 @@ def _route_of(spec, fs_in, fs_out, *, plan, time_base, speed, true_rate_hz):
             raise ParameterError(f"the time base converts {time_base.fs_in} -> "
                                  f"{time_base.fs_out} Hz but the source is {fs_in} Hz and the "
                                  f"target {fs_out} Hz", "time_base")
-        plan = plan if plan is not None else timebase_design(spec, time_base)
-        return as_plan(plan).require_met(), time_base.output_length, time_base, None
+        plan = as_plan(plan if plan is not None else timebase_design(spec, time_base))
+        if plan.multistage or plan.stages[0].path != "arbitrary":
+            raise ParameterError("a time base needs a single-stage design on the arbitrary-ratio "
+                                 "path (webapp.dsp.timebase.timebase_design)", "design")
+        return plan.require_met(), time_base.output_length, time_base, None
     if true_rate_hz is not None:
         speed = true_rate_change(fs_in, true_rate_hz, fs_out)
     elif speed is not None and not isinstance(speed, SpeedChange):

@@ -121,3 +121,22 @@ def test_the_corrected_conversion_runs_like_any_other_and_lines_up(app, client, 
     assert any(c["id"] == done["id"] for c in listed)
     recipe = client.get(done["urls"]["recipe"]).get_json()
     assert recipe["time_base"] == f["time_base"]
+
+
+def test_a_corrected_conversions_recipe_reruns_bit_exact_on_the_page(client, headers, pair,
+                                                                      wait_done):
+    ref, trk = pair
+    r = client.post("/api/drift/conversions",
+                    json=dict(reference_id=ref["id"], track_id=trk["id"], format="flac",
+                              preset="spoken_word_delivery"), headers=headers)
+    done = wait_done(r.get_json()["id"])
+    assert done["status"] == "done", done["error"]
+    recipe = client.get(done["urls"]["recipe"]).get_json()
+    r = client.post("/api/conversions", json=dict(recording_id=trk["id"], recipe=recipe),
+                    headers=headers)
+    assert r.status_code == 202, r.get_json()
+    again = wait_done(r.get_json()["id"])
+    assert again["status"] == "done", again["error"]
+    # the same bytes (sha256) and every recorded figure, the time base included
+    assert again["figures"]["recipe_check"] == {"reproduces": True, "differences": []}
+    assert again["figures"]["output_sha256"] == done["figures"]["output_sha256"]

@@ -440,7 +440,9 @@ def _recipe_job(data, rec, target_for):
         raise ParameterError(f"recipe output {recipe.data['output']['name']!r} is not a format "
                              "the page writes", "recipe")
     fmt = next(k for k, v in OUTPUT_FORMAT_EXTENSIONS.items() if v == ext)
-    plan = state().cache.conversion_plan(recipe.spec, recipe.fs_in, recipe.fs_out)
+    plan = None     # a time base or a speed change is designed by the job model itself
+    if recipe.time_base is None and recipe.speed is None:
+        plan = state().cache.conversion_plan(recipe.spec, recipe.fs_in, recipe.fs_out)
     job = jobs.prepare_rerun(recipe, rec["path"], target_for(ext), plan=plan)
     return recipe, job, fmt
 
