@@ -1,6 +1,7 @@
 """Listening: renditions of an excerpt (original, converted, difference) level-matched and
 time-aligned at the playback rate, and the statistics of blind trials (no Flask here)."""
 
+from fractions import Fraction
 import math
 import os
 
@@ -20,8 +21,10 @@ RENDITION_MIN_S = 0.5
 
 def binomial_tail(correct, trials):
     """P(at least ``correct`` right of ``trials`` by guessing, p = 1/2): the one-sided
-    binomial tail, summed exactly."""
-    return math.fsum(math.comb(trials, k) for k in range(correct, trials + 1)) / 2.0 ** trials
+    binomial tail, summed exactly (as a fraction of whole numbers, so thousands of trials
+    don't overflow a float on the way)."""
+    return float(Fraction(sum(math.comb(trials, k) for k in range(correct, trials + 1)),
+                          2 ** trials))
 
 
 def _grid_hz(*rates):
