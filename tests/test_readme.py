@@ -21,7 +21,6 @@ import time
 import urllib.request
 
 import numpy as np
-import pytest
 import soundfile as sf
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))

@@ -17,7 +17,6 @@ Conventions
   count and the time of the first one.
 """
 
-import math
 import time
 
 import numpy as np

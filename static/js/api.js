@@ -94,6 +94,9 @@ export const cancelConversion = (id) => post(urlFor('conversion_cancel', { id })
 export const blindTrials = (id) => get(urlFor('blind_trials', { id }));
 export const postBlindTrials = (id, body) => post(urlFor('blind_trials', { id }), body);
 export const rendition = (body, signal) => post(urlFor('renditions'), body, { signal });
+export const drift = (body, signal) => post(urlFor('drift'), body, { signal });
+export const driftListen = (body, signal) => post(urlFor('drift_listen'), body, { signal });
+export const startDriftConversion = (body) => post(urlFor('drift_conversions'), body);
 export const clearOld = (days) => post(urlFor('clear'), { older_than_days: days });
 export const startBatch = (body) => post(urlFor('batches'), body);
 export const batch = (id) => get(urlFor('batch', { id }));

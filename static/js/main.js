@@ -18,9 +18,10 @@ import * as filter from './views/filter.js';
 import * as audit from './views/audit.js';
 import * as listen from './views/listen.js';
 import * as history from './views/history.js';
+import * as timebase from './views/timebase.js';
 import * as batch from './views/batch.js';
 
-const TABS = ['spectra', 'filter', 'audit', 'listen'];
+const TABS = ['spectra', 'filter', 'audit', 'listen', 'timebase'];
 
 function fatal(message) {
   const node = document.getElementById('app-status');
@@ -107,6 +108,7 @@ async function boot() {
   audit.init(document.getElementById('panel-audit'), state);
   listen.init(document.getElementById('panel-listen'), state);
   result.init(document.getElementById('result-view'), state);
+  timebase.init(document.getElementById('panel-timebase'), state);
   history.init(document.getElementById('history-view'), state);
   redesign.start(state);
   batch.init(document.getElementById('batch-view'), state);

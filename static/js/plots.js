@@ -528,3 +528,46 @@ export function onClick(el, fn) {
     if (p && Number.isFinite(p.x)) fn(p.x);
   });
 }
+
+// ------------------------------------------------------------------ time base
+
+/**
+ * Offset of the track against the reference over time: the per-window points (used ones
+ * filled, the rest hollow), the fitted line, and below it the residuals of the used points.
+ */
+export function timeBase(el, r) {
+  const p = r.points;
+  const pick = (arr, want) => arr.filter((_, i) => p.used[i] === want);
+  const data = [
+    {
+      type: 'scatter', mode: 'markers', x: pick(p.times_s, true), y: pick(p.offsets_ms, true),
+      name: 'window offsets (used)', meta: 'offsets_used', marker: { color: colours.source, size: 6 },
+      hovertemplate: '%{x:.1f} s<br>%{y:.3f} ms<extra></extra>',
+    },
+    {
+      type: 'scatter', mode: 'markers', x: pick(p.times_s, false), y: pick(p.offsets_ms, false),
+      name: 'windows left out', meta: 'offsets_unused',
+      marker: { color: colours.muted, size: 6, symbol: 'circle-open' },
+      hovertemplate: '%{x:.1f} s<br>%{y:.3f} ms (left out)<extra></extra>',
+    },
+    {
+      type: 'scatter', mode: 'lines', x: [0, r.duration_s], y: [r.offset_ms, r.offset_end_ms],
+      name: `fitted line: ${fmt.num(r.drift_ppm, 3)} ppm`, meta: 'fit',
+      line: { color: colours.target, width: 2 }, hoverinfo: 'skip',
+    },
+    {
+      type: 'scatter', mode: 'markers', x: pick(p.times_s, true), y: pick(p.residual_ms, true),
+      name: 'residual', meta: 'residuals', xaxis: 'x', yaxis: 'y2',
+      marker: { color: colours.measured, size: 5 },
+      hovertemplate: '%{x:.1f} s<br>%{y:.4f} ms<extra></extra>',
+    },
+  ];
+  const layout = baseLayout({
+    uirevision: `${r.reference}-${r.track}`,
+    hovermode: 'closest',
+    xaxis: axis('reference time, s', { range: [0, r.duration_s], anchor: 'y2' }),
+    yaxis: axis('track offset, ms', { domain: [0.36, 1] }),
+    yaxis2: axis('residual, ms', { domain: [0, 0.26] }),
+  });
+  return react(el, data, layout);
+}

@@ -155,7 +155,7 @@ def test_an_extreme_design_is_estimated_and_asked_about_first(laptop, laptop_sho
     assert state(page, "design")["id"] == before        # nothing was designed
     # the next edit goes back to an ordinary design at once
     page.fill("#spec-passband-hz", "")
-    page.wait_for_function(f"() => window.rateferry.state.get('design').id !== null && !window.rateferry.state.get('designBusy')")
+    page.wait_for_function("() => window.rateferry.state.get('design').id !== null && !window.rateferry.state.get('designBusy')")
 
 
 def test_blind_trial_can_hide_the_answers_until_the_end(laptop, laptop_shot):

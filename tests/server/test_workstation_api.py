@@ -16,7 +16,7 @@ import pytest
 from scipy import signal
 
 from webapp.designs import EXTREME_NUMTAPS
-from webapp.dsp.spec import DEFAULT_PRESET, PRESETS, preset
+from webapp.dsp.spec import DEFAULT_PRESET
 from webapp.figures import PALETTE
 
 

@@ -13,6 +13,7 @@ from webapp.jsontools import jsonable
 from webapp.dsp import spec as spec_module
 from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
 from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
+from webapp.dsp.timebase import TimeBase, timebase_design
 from webapp.store import ACTIVE_STATUSES, FINAL_STATUSES, new_id
 from webapp.delivery import DITHERS, Delivery
 from webapp import jobs
@@ -59,6 +60,10 @@ URLS = {
     "recipes": "/api/recipes",
     "renditions": "/api/renditions",
     "rendition_audio": "/api/renditions/{id}/{kind}",
+    "drift": "/api/drift",
+    "drift_listen": "/api/drift/listen",
+    "drift_listen_audio": "/api/drift/listen/{id}/{kind}",
+    "drift_conversions": "/api/drift/conversions",
     "clear": "/api/maintenance/clear",
     "batches": "/api/batches",
     "batch": "/api/batches/{id}",
@@ -448,12 +453,15 @@ def _prepare_conversion(rec, spec, fs_in, fs_out, fmt, delivery, design_id=None)
     return cid, job, design_id
 
 
-def _queue_conversion(rec, cid, job, design_id, fmt, *, spec, delivery, recipe=None):
-    """Add the conversion to the store and queue it on the pool; returns its row."""
+def _queue_conversion(rec, cid, job, design_id, fmt, *, spec, delivery, recipe=None,
+                      stem=None):
+    """Add the conversion to the store and queue it on the pool; returns its row. Every
+    conversion endpoint (plain, recipe re-run, time base) queues through here; ``stem`` names
+    the download (default: the recording's name)."""
     conv = get_db().add_conversion(
         conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=job.fs_in,
         fs_out=job.fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
-        output_path=job.target, download_name=job.download_name(_stem(rec["name"])),
+        output_path=job.target, download_name=job.download_name(stem or _stem(rec["name"])),
         frames_total=job.frames_total)
 
     def run(progress, cancel):
@@ -475,7 +483,9 @@ def _recipe_job(data, rec, target_for):
         raise ParameterError(f"recipe output {recipe.data['output']['name']!r} is not a format "
                              "the page writes", "recipe")
     fmt = next(k for k, v in OUTPUT_FORMAT_EXTENSIONS.items() if v == ext)
-    plan = state().cache.conversion_plan(recipe.spec, recipe.fs_in, recipe.fs_out)
+    plan = None     # a time base or a speed change is designed by the job model itself
+    if recipe.time_base is None and recipe.speed is None:
+        plan = state().cache.conversion_plan(recipe.spec, recipe.fs_in, recipe.fs_out)
     job = jobs.prepare_rerun(recipe, rec["path"], target_for(ext), plan=plan)
     return recipe, job, fmt
 
@@ -596,7 +606,9 @@ def _result_for(conv):
     rec = recording_or_404(conv["recording_id"])
     f = conv["figures"]
     spec = spec_module.Spec(**conv["spec"])
-    plan = st.cache.conversion_plan(spec, conv["fs_in"], conv["fs_out"])
+    time_base = TimeBase.from_dict(f["time_base"]) if f.get("time_base") else None
+    plan = (timebase_design(spec, time_base) if time_base is not None
+            else st.cache.conversion_plan(spec, conv["fs_in"], conv["fs_out"]))
     output_meters = {k: v for k, v in f["output"].items() if k != "clipped_samples"}
     return ConversionResult(
         source_path=rec["path"], output_path=conv["output_path"], fs_in=conv["fs_in"],
@@ -606,7 +618,8 @@ def _result_for(conv):
         output_format=f["output_format"], output_subtype=f["output_subtype"], bits=f["bits"],
         gain_db=f["gain_db"], gain_reason=f["gain_reason"], source_meters=f["source"],
         output_meters=output_meters, clipped_samples=f["clipped_samples"], passes=f["passes"],
-        source_sha256=f["source_sha256"], output_sha256=f["output_sha256"], version=f["version"])
+        source_sha256=f["source_sha256"], output_sha256=f["output_sha256"], version=f["version"],
+        time_base=time_base)
 
 
 def _user_names(conv):

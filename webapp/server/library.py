@@ -8,12 +8,14 @@ from webapp import media
 from webapp.dsp.errors import RateferryError
 from webapp.pipeline import Meters
 
-__all__ = ["DEMO_NAME", "probe_figures", "measure", "register_demo", "find_demo_file",
-           "demo_files"]
+__all__ = ["DEMO_NAME", "DEMO_PAIR", "probe_figures", "measure", "register_demo",
+           "register_demo_pair", "find_demo_file", "demo_files"]
 
 log = logging.getLogger(__name__)
 
 DEMO_NAME = "harbour_interview_44k1.flac"
+#: The time base demo: a reference and a track of one invented interview (two recorders).
+DEMO_PAIR = ("tidewater_call_16k.flac", "tidewater_guest_16k.flac")
 _DEMO_PATTERNS = ("*.flac", "*.wav")
 
 
@@ -60,6 +62,18 @@ def find_demo_file(folder):
     """The main demo recording in ``folder``: DEMO_NAME, else the first .flac/.wav; or None."""
     files = demo_files(folder)
     return files[0] if files else None
+
+
+def register_demo_pair(store, folder):
+    """Register the time base demo pair in place; returns {reference_id, track_id} or None."""
+    paths = [os.path.join(folder or "", name) for name in DEMO_PAIR]
+    if not all(os.path.isfile(p) for p in paths):
+        log.info("no demo pair in %s", folder)
+        return None
+    ids = [_register_one(store, p) for p in paths]
+    if None in ids:
+        return None
+    return dict(reference_id=ids[0], track_id=ids[1])
 
 
 def _register_one(store, path):
