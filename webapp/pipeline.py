@@ -68,6 +68,8 @@ class ConversionResult:
     version: str = __version__
     recipe_check: dict | None = None    # a recipe re-run: reproduces, differences
     warnings: tuple = ()                # e.g. a source shorter than its header declares
+    time_base: object = None            # the job's TimeBase (a drift correction) or None
+    speed: object = None                # the job's SpeedChange or None
 
     def figures(self):
         d = self.plan.figures()
@@ -84,6 +86,10 @@ class ConversionResult:
         )
         if self.recipe_check is not None:
             d["recipe_check"] = dict(self.recipe_check)
+        if self.time_base is not None:
+            d["time_base"] = self.time_base.to_dict()
+        if self.speed is not None:
+            d["speed"] = self.speed.to_dict()
         return d
 
 
@@ -296,7 +302,8 @@ def _execute(job, *, progress, cancel, tags_comment):
     source_meters = Meters(fs_in, src.channels)
     gain_db, gain_reason = 0.0, "report only"
     if needs_first_pass:
-        conv = make_converter(design, channels=src.channels, dtype=dtype)
+        conv = make_converter(design, channels=src.channels, dtype=dtype,
+                              time_base=job.time_base)
         first = Meters(fs_out, src.channels)
         with _Stages() as stages:
             source_stage = stages.add(source_meters.process, "rateferry-source-meters")
@@ -317,7 +324,7 @@ def _execute(job, *, progress, cancel, tags_comment):
                           channels=src.channels, rate_hz=fs_out)
     scale = {"16": 2.0**15, "24": 2.0**31}.get(out_plan.bits)
     out_meters = Meters(fs_out, src.channels)
-    conv = make_converter(design, channels=src.channels, dtype=dtype)
+    conv = make_converter(design, channels=src.channels, dtype=dtype, time_base=job.time_base)
     comment = media.converted_comment(fs_in, fs_out) if tags_comment else None
 
     def quantize(y):
@@ -369,4 +376,4 @@ def _execute(job, *, progress, cancel, tags_comment):
         output_meters=out_meters.result(),
         clipped_samples=int(quant.clipped_samples) if quant is not None else 0,
         passes=passes, block_frames=int(blocksize), source_sha256=media.sha256_file(source),
-        output_sha256=out_sha, warnings=warnings)
+        output_sha256=out_sha, warnings=warnings, time_base=job.time_base, speed=job.speed)
