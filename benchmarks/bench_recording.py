@@ -7,8 +7,8 @@ The page's sequence after a file is chosen, through the real app (Flask test cli
 SQLite, real files through soundfile): POST /api/recordings (the upload; files up to 10
 minutes are probed and metered before it answers, longer ones in the background), POST
 /api/designs for the page's default route (the default preset, 44.1 -> 48 kHz), POST
-/api/spectra. The parts of the upload are also timed alone (probe, meters = loudness + true
-peak over the whole file). There is no overview endpoint on main yet; it is not included.
+/api/spectra, GET /api/recordings/<id>/overview (when the app has it). The parts of the upload
+are also timed alone (probe, meters = loudness + true peak over the whole file).
 
 Reference beside the total: reading the file once with soundfile (all of it, in blocks), the
 least any analysis of the whole file costs. Wall and CPU seconds of this process.
@@ -92,9 +92,18 @@ def page_sequence(path):
             if r.status_code != 200:
                 raise RuntimeError(f"spectra answered {r.status_code}: {r.data[:300]!r}")
             out["spectra"] = dict(wall_s=wall, cpu_s=cpu)
+            if "recording_overview" in options.get("urls", {}) or _has_overview(app):
+                r, wall, cpu = timed(lambda: client.get(f"/api/recordings/{rec['id']}/overview"))
+                if r.status_code != 200:
+                    raise RuntimeError(f"overview answered {r.status_code}: {r.data[:300]!r}")
+                out["overview"] = dict(wall_s=wall, cpu_s=cpu)
         finally:
             app.extensions["rateferry"].shutdown()
     return out
+
+
+def _has_overview(app):
+    return any(rule.rule.endswith("/overview") for rule in app.url_map.iter_rules())
 
 
 def parts(path):
@@ -133,14 +142,16 @@ def main(argv=None):
             dict(name="page sequence, CPU", value=total_cpu, unit="s", reference=ref,
                  reference_value=alone["read"]["cpu_s"])]
     for key, label in (("upload", "upload (probe + meters when <= 10 min)"),
-                       ("design", "design of the default route"), ("spectra", "spectra")):
-        rows.append(dict(name=f"  {label}, wall", value=seq[key]["wall_s"], unit="s"))
+                       ("design", "design of the default route"), ("spectra", "spectra"),
+                       ("overview", "overview")):
+        if key in seq:
+            rows.append(dict(name=f"  {label}, wall", value=seq[key]["wall_s"], unit="s"))
     for key in ("probe", "meters"):
         rows.append(dict(name=f"  {key} alone, CPU", value=alone[key]["cpu_s"], unit="s",
                          reference=ref, reference_value=alone["read"]["cpu_s"]))
     title = (f"{args.minutes:g} min stereo {RATE_HZ} Hz "
              f"{'24-bit WAV' if args.format == 'wav' else '16-bit FLAC'} ({size_mb:.1f} MB) "
-             "loaded in the page (no overview endpoint on main yet)")
+             f"loaded in the page{'' if 'overview' in seq else ' (no overview endpoint)'}")
     return dict(title=title, figures=rows, sequence=seq, alone=alone,
                 load_average=list(os.getloadavg()))
 

@@ -20,6 +20,7 @@ Conventions
 import time
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from webapp import media
 from webapp.dsp.errors import ParameterError
@@ -102,23 +103,25 @@ def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOL
     loud = LoudnessMeter(rate_hz=rate, channels=info.channels) \
         if rate >= MIN_LOUDNESS_RATE_HZ else None
     pos = 0
-    for block in media.read_blocks(path, blocksize=_BLOCK_FRAMES):
-        m = block.shape[0]
-        col = (np.arange(pos, pos + m, dtype=np.int64) * n) // frames
-        starts = np.flatnonzero(np.r_[True, col[1:] != col[:-1]])
-        cols = col[starts]                     # distinct and ascending within the block
-        lo, hi = _frame_range(block)
-        low[cols] = np.minimum(low[cols], np.minimum.reduceat(lo, starts))
-        high[cols] = np.maximum(high[cols], np.maximum.reduceat(hi, starts))
-        peaks = frame_peaks(block)
-        at_fs = np.flatnonzero(full_scale_frames(block, peaks))
-        clipped.add(at_fs + pos, col[at_fs])
-        over = finder.process(block)
-        overs.add(over, (over * n) // frames)
-        if loud is not None:
-            loud.process(block)
-        pos += m
-    over = finder.finish()
+    # one BLAS thread for the interpolator's small products (more only fight over the cores)
+    with threadpool_limits(limits=1, user_api="blas"):
+        for block in media.read_blocks(path, blocksize=_BLOCK_FRAMES):
+            m = block.shape[0]
+            col = (np.arange(pos, pos + m, dtype=np.int64) * n) // frames
+            starts = np.flatnonzero(np.r_[True, col[1:] != col[:-1]])
+            cols = col[starts]                     # distinct and ascending within the block
+            lo, hi = _frame_range(block)
+            low[cols] = np.minimum(low[cols], np.minimum.reduceat(lo, starts))
+            high[cols] = np.maximum(high[cols], np.maximum.reduceat(hi, starts))
+            peaks = frame_peaks(block)
+            at_fs = np.flatnonzero(full_scale_frames(block, peaks))
+            clipped.add(at_fs + pos, col[at_fs])
+            over = finder.process(block)
+            overs.add(over, (over * n) // frames)
+            if loud is not None:
+                loud.process(block)
+            pos += m
+        over = finder.finish()
     overs.add(over, (over * n) // frames)
     edges = (np.arange(n + 1, dtype=np.int64) * frames) // n
     return dict(
