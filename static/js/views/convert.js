@@ -1,4 +1,5 @@
-// Delivery and conversion: word length, dither, ceiling and loudness; start, progress with ETA,
+// Delivery and conversion: a destination (profile) picker, word length, dither, ceiling,
+// loudness, limiter and channels; start, progress with ETA,
 // cancel; downloads of the file, the design sheet and the recipe; a recipe upload that fills
 // the controls.
 
@@ -8,6 +9,7 @@ import { el, fill, facts, showError, clearErrors, errorSlot, numberOf } from '..
 
 const BITS_LABELS = { '': 'like the source', 16: '16-bit PCM', 24: '24-bit PCM', '32f': '32-bit float', '64f': '64-bit float' };
 const DITHER_LABELS = { none: 'none (round)', tpdf: 'TPDF', shaped: 'TPDF, noise shaped' };
+const CHANNEL_LABELS = { keep: 'as recorded', mono: 'mono (fold-down)', pick: 'one channel', stereo: 'stereo from mono' };
 
 /** Show an error beside its control anywhere on the page, and in this view's own slot. */
 function report(root, err) {
@@ -29,6 +31,10 @@ export function init(root, state) {
   const seed = el('input', { type: 'number', name: 'dither_seed', id: 'out-seed', min: 0, step: 1, value: 0 });
   const ceiling = el('input', { type: 'number', name: 'ceiling_dbtp', id: 'out-ceiling', min: -60, max: 0, step: 'any', placeholder: 'none' });
   const loudness = el('input', { type: 'number', name: 'loudness_lufs', id: 'out-loudness', min: -70, max: 0, step: 'any', placeholder: 'keep' });
+  const profile = el('select', { name: 'profile', id: 'out-profile' });
+  const profileFacts = el('ul', { class: 'hint', id: 'out-profile-sources' });
+  const limiter = el('input', { type: 'checkbox', name: 'limiter', id: 'out-limiter' });
+  const channels = el('select', { name: 'channel_layout', id: 'out-channels' });
 
   const startBtn = el('button', { type: 'button', id: 'convert-start', disabled: true }, 'Convert');
   const cancelBtn = el('button', { type: 'button', id: 'convert-cancel', class: 'danger', hidden: true }, 'Cancel');
@@ -44,6 +50,8 @@ export function init(root, state) {
 
   fill(root,
     el('h2', { id: 'convert-h' }, 'Delivery and conversion'),
+    el('div', { class: 'field' }, el('label', { for: 'out-profile' }, 'Destination'), profile, errorSlot('profile')),
+    profileFacts,
     el('div', { class: 'pair' },
       el('div', { class: 'field' }, el('label', { for: 'out-format' }, 'File format'), format, errorSlot('format')),
       el('div', { class: 'field' }, el('label', { for: 'out-bits' }, 'Word length'), bits, errorSlot('bits'))),
@@ -55,7 +63,10 @@ export function init(root, state) {
         el('div', { class: 'with-unit' }, ceiling, el('span', { class: 'unit' }, 'dBTP')), errorSlot('ceiling_dbtp')),
       el('div', { class: 'field' }, el('label', { for: 'out-loudness' }, 'Loudness target'),
         el('div', { class: 'with-unit' }, loudness, el('span', { class: 'unit' }, 'LUFS')), errorSlot('loudness_lufs'))),
-    el('p', { class: 'hint' }, 'Empty ceiling: the true peak is only reported. Empty target: the loudness is kept. With either set the file is measured first, then written with the gain that satisfies both.'),
+    el('div', { class: 'pair' },
+      el('div', { class: 'field' }, el('label', { for: 'out-channels' }, 'Channels'), channels, errorSlot('channel_layout')),
+      el('div', { class: 'field' }, el('label', { for: 'out-limiter' }, limiter, ' Limiter holds the ceiling'), errorSlot('limiter'))),
+    el('p', { class: 'hint' }, 'Empty ceiling: the true peak is only reported. Empty target: the loudness is kept. With either set the file is measured first, then written with the gain that satisfies both; with the limiter the loudness target is met and the limiter keeps the peaks under the ceiling. Every written file is measured again.'),
     el('div', { class: 'buttons' }, startBtn, cancelBtn),
     progress, status, errorSlot('recording_id'), errorSlot('delivery'), errorSlot('*'),
     result,
@@ -79,6 +90,9 @@ export function init(root, state) {
     format.replaceChildren(...o.output_formats.map((f) => el('option', { value: f }, f.toUpperCase())));
     bits.replaceChildren(el('option', { value: '' }, BITS_LABELS['']), ...o.word_lengths.map((b) => el('option', { value: b }, BITS_LABELS[b] || b)));
     dither.replaceChildren(...o.dithers.map((d) => el('option', { value: d }, DITHER_LABELS[d] || d)));
+    profile.replaceChildren(el('option', { value: '' }, 'my own settings'),
+      ...Object.values(o.profiles || {}).map((p) => el('option', { value: p.name }, p.label)));
+    channels.replaceChildren(...(o.channel_layouts || []).map((c) => el('option', { value: c }, CHANNEL_LABELS[c] || c)));
     showDelivery(s);
   });
 
@@ -90,6 +104,8 @@ export function init(root, state) {
     seed.value = String(d.dither_seed);
     ceiling.value = d.ceiling_dbtp ?? '';
     loudness.value = d.loudness_lufs ?? '';
+    limiter.checked = Boolean(d.limiter);
+    channels.value = d.channel_layout || 'keep';
     dither.disabled = bits.value === '32f' || bits.value === '64f';
   }
   state.on(['delivery', 'format'], showDelivery);
@@ -100,6 +116,10 @@ export function init(root, state) {
       return Number.isNaN(v) ? input.value : v;
     };
     return {
+      ...state.get('delivery'),
+      limiter: limiter.checked,
+      channel_layout: channels.value || 'keep',
+      mp3_kbps: format.value === 'mp3' ? (state.get('delivery').mp3_kbps ?? null) : null,
       bits: bits.value === '' ? null : bits.value,
       dither: dither.value,
       dither_seed: value(seed) ?? 0,
@@ -107,10 +127,30 @@ export function init(root, state) {
       loudness_lufs: value(loudness),
     };
   }
-  for (const c of [bits, dither, seed, ceiling, loudness]) {
+  for (const c of [bits, dither, seed, ceiling, loudness, limiter, channels]) {
     c.addEventListener('change', () => state.set({ delivery: readDelivery() }));
   }
   format.addEventListener('change', () => state.set({ format: format.value }));
+
+  // A destination fills the delivery, the format, the target rate and the filter preset from
+  // its profile (every control stays editable); each number is listed with its source.
+  profile.addEventListener('change', () => {
+    const s = state.get();
+    const p = (s.options.profiles || {})[profile.value];
+    profileFacts.replaceChildren();
+    if (!p) return;
+    const fields = Object.keys(s.options.delivery_defaults || {});
+    const delivery = { ...s.options.delivery_defaults };
+    for (const k of fields) if (k in p) delivery[k] = p[k];
+    const patch = { delivery, format: p.container };
+    if (s.route) {
+      const fsOut = p.rate_hz ?? (s.recording ? s.recording.rate_hz : s.route.fs_out);
+      patch.route = { ...s.route, fs_out: fsOut, preset: p.preset, spec: {} };
+    }
+    state.set(patch);
+    profileFacts.replaceChildren(...Object.entries(p.sources || {}).map(([k, text]) =>
+      el('li', {}, `${k.replace(/_/g, ' ')} ${p[k] ?? 'none'}: ${text}`)));
+  });
 
   state.on(['recording', 'design', 'designError', 'conversion'], (s) => {
     const busy = s.conversion && ['queued', 'running'].includes(s.conversion.status);
@@ -166,10 +206,23 @@ export function init(root, state) {
         ['Clipped samples', fmt.grouped(f.clipped_samples), f.clipped_samples > 0 ? 'bad' : ''],
         ['Dither', `${DITHER_LABELS[f.delivery.dither] || f.delivery.dither}, seed ${f.delivery.dither_seed}`],
         ['Passes', String(f.passes)],
+        ...deliveryFacts(f),
         ['Output sha256', el('span', { class: 'mono' }, f.output_sha256 || fmt.dash)],
       ], 'facts compact') : null,
       el('div', { class: 'downloads' }, ...links(c)),
       sheetFields);
+  }
+
+  function deliveryFacts(f) {
+    const r = f.delivery_report || {};
+    const rows = [];
+    if (r.met === true || r.met === false) {
+      rows.push(['Delivery', r.met ? `met (verified on ${r.verified_on})` : `NOT met: ${(r.notes || []).join('; ')}`, r.met ? '' : 'bad']);
+    }
+    if (r.limiter) rows.push(['Limiter', `largest reduction ${fmt.db(r.limiter.max_gain_reduction_db, 2)}, limiting ${r.limiter.limited_s.toFixed(2)} s`]);
+    if (r.write_passes > 1) rows.push(['Write passes', String(r.write_passes)]);
+    if (r.filter_applied === false) rows.push(['Filter', 'none: same rate in and out']);
+    return rows;
   }
 
   function follow(c) {
