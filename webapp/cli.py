@@ -238,7 +238,7 @@ def cmd_convert(args):
     if args.sheet:
         from . import sheet
         sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
-                          note=args.note)
+                          note=args.note, profile=None if args.recipe else _profile_of(args))
     for warning in result.warnings:
         sys.stderr.write(f"rateferry: warning: {warning}\n")
     figs = result.figures()
