@@ -153,7 +153,7 @@ AIM_LU = 0.1
 #: Most write passes of one delivery (gain corrections and codec overshoot corrections).
 MAX_WRITE_PASSES = 4
 # A codec's overshoot is corrected by this much more than was measured (ours).
-_OVERSHOOT_MARGIN_DB = 0.1
+_OVERSHOOT_MARGIN_DB = 0.3
 
 
 @dataclass(frozen=True)
@@ -166,6 +166,12 @@ class Attempt:
     limiter_ceiling_dbtp: float | None = None
     gain_cap_db: float | None = None
     limiting_needed_db: float = 0.0
+    # kept across write passes: (gain, delivered loudness) of the passes before, the codec
+    # overshoot corrected so far, the first pass's gain and reason
+    history: tuple = ()
+    overshoot_db: float = 0.0
+    first_gain_db: float | None = None
+    base_reason: str = ""
 
     @property
     def capped(self):
@@ -274,8 +280,8 @@ def review(delivery, attempt, meters, *, passes_done, lossy=False):
         notes.append(f"loudness {lufs:.2f} LUFS is {abs(off):.2f} LU from the {target:g} LUFS "
                      f"target, outside the +-{tol:g} LU tolerance")
     if attempt.capped and attempt.limiting_needed_db > 0 and delivery.loudness_lufs is not None:
-        notes.append(f"the target needs {attempt.limiting_needed_db:.2f} dB of limiting, more "
-                     f"than the {delivery.max_limiting_db:g} dB allowed")
+        notes.append(f"the target needs more limiting than the {delivery.max_limiting_db:g} dB "
+                     f"allowed (about {attempt.limiting_needed_db:.2f} dB by the first measurement)")
     elif attempt.capped and not uses_limiter(delivery) and out_of_tolerance:
         notes.append("the ceiling held the gain down: allow the limiter to meet the target")
     promised = ceiling is not None or target is not None
@@ -290,23 +296,38 @@ def review(delivery, attempt, meters, *, passes_done, lossy=False):
         lower = tp - ceiling + _OVERSHOOT_MARGIN_DB
         if attempt.limiter_ceiling_dbtp is not None:
             nxt = replace(nxt, limiter_ceiling_dbtp=attempt.limiter_ceiling_dbtp - lower,
-                          reason=nxt.reason + f"; limiter ceiling lowered {lower:.2f} dB for "
-                                              f"the codec's overshoot")
+                          overshoot_db=attempt.overshoot_db + lower)
         else:
-            nxt = replace(nxt, gain_db=attempt.gain_db - lower,
-                          gain_cap_db=(None if attempt.gain_cap_db is None
-                                       else attempt.gain_cap_db - lower),
-                          reason=nxt.reason + f"; lowered {lower:.2f} dB for the codec's "
-                                              f"overshoot")
-    elif off is not None and abs(off) > AIM_LU:
-        gain = attempt.gain_db + off
-        if attempt.gain_cap_db is not None:
-            gain = min(gain, attempt.gain_cap_db)
-        if abs(gain - attempt.gain_db) > 0.01:
-            nxt = replace(nxt, gain_db=float(gain),
-                          reason=attempt.reason.split("; corrected")[0]
-                          + f"; corrected by {gain - attempt.gain_db:+.2f} dB after verification")
-    return (None if nxt == attempt else nxt), verdict
+            nxt = replace(nxt, gain_db=attempt.gain_db - lower, overshoot_db=attempt.overshoot_db
+                          + lower, gain_cap_db=(None if attempt.gain_cap_db is None
+                                                else attempt.gain_cap_db - lower))
+    if off is not None and abs(off) > AIM_LU and not (over and attempt.limiter_ceiling_dbtp is None):
+        # secant step on loudness against gain: under heavy limiting a dB of gain raises the
+        # loudness by less than a dB (the slope is kept within 0.2 .. 1)
+        slope = 1.0
+        if attempt.history:
+            g0, l0 = attempt.history[-1]
+            if abs(attempt.gain_db - g0) > 1e-6:
+                slope = min(1.0, max(0.2, (lufs - l0) / (attempt.gain_db - g0)))
+        gain = nxt.gain_db + off / slope
+        if nxt.gain_cap_db is not None:
+            gain = min(gain, nxt.gain_cap_db)
+        if abs(gain - nxt.gain_db) > 0.01:
+            nxt = replace(nxt, gain_db=float(gain))
+    if nxt == attempt:
+        return None, verdict
+    first = attempt.gain_db if attempt.first_gain_db is None else attempt.first_gain_db
+    words = [attempt.base_reason or attempt.reason]
+    if nxt.overshoot_db:
+        words.append(f"{'limiter ceiling' if nxt.limiter_ceiling_dbtp is not None else 'gain'} "
+                     f"lowered {nxt.overshoot_db:.2f} dB for the codec's overshoot")
+    if nxt.limiter_ceiling_dbtp is not None or not nxt.overshoot_db:
+        if abs(nxt.gain_db - first) > 1e-9:
+            words.append(f"gain corrected by {nxt.gain_db - first:+.2f} dB after verification")
+    history = attempt.history + ((attempt.gain_db, lufs),) if lufs is not None else attempt.history
+    nxt = replace(nxt, reason="; ".join(words), history=history, first_gain_db=first,
+                  base_reason=attempt.base_reason or attempt.reason)
+    return nxt, verdict
 
 
 def gain_for(delivery, out_meters, bits, rate_hz):
