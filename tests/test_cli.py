@@ -19,7 +19,8 @@ def run(capsys, *argv):
 
 
 def test_design_json_has_the_contract_keys(capsys):
-    code, out, _ = run(capsys, "design", "--from", "44100", "--to", "48000", "--json")
+    code, out, _ = run(capsys, "design", "--from", "44100", "--to", "48000", "--preset",
+                       "music_delivery", "--json")
     assert code == 0
     d = json.loads(out)
     for key in ("up", "down", "numtaps", "method", "meets_mask", "measured",

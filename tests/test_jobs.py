@@ -125,7 +125,7 @@ def test_a_recipe_rerun_reproduces_every_recorded_figure(recorded, tmp_path, cap
     out, err = capsys.readouterr()
     assert code == 0, err
     figs = json.loads(out)
-    assert figs["reproduces_recipe"] is True and figs["recipe_differences"] == []
+    assert figs["recipe"]["reproduces"] is True and figs["recipe"]["differences"] == []
     assert _sha(again) == _sha(recorded["out"])
     # the recipe's block size was used, not the default
     assert load_recipe(recorded["recipe"]).block_frames == 3001

@@ -170,8 +170,8 @@ def test_convert_json_reports_source_and_output_meters(capsys, tmp_audio, tmp_pa
         for key in ("integrated_lufs", "true_peak_dbtp", "sample_peak_dbfs"):
             assert isinstance(d[side][key], float)
     assert d["output"]["clipped_samples"] == 0
-    assert d["frames_in"] == 44100 and d["frames_out"] == math.ceil(44100 * 160 / 147)
-    assert "gain_db" in d and "seconds" in d and d["up"] == 160
+    assert d["source"]["frames"] == 44100 and d["output"]["frames"] == math.ceil(44100 * 160 / 147)
+    assert "gain_db" in d["delivery"] and "seconds" in d["timing"] and d["design"]["up"] == 160
     # a 1 kHz sine at amplitude 0.4 reads -3.01 + 20 log10(0.4) + 3.01 (two channels) LUFS
     # (BS.1770-4: a 0 dBFS sine in one channel reads -3.01 LKFS; channels sum in power)
     assert d["source"]["integrated_lufs"] == pytest.approx(20 * math.log10(0.4), abs=0.1)
@@ -182,7 +182,10 @@ def test_convert_progress_bar_goes_to_stderr_and_quiet_turns_it_off(capsys, tmp_
     src = tmp_audio("in.wav", sine(1000.0, 44100, 0.5), 44100, subtype="PCM_16")
     code, out, err = run(capsys, "convert", src, tmp_path / "a.wav", "--to", 22050)
     assert code == 0 and "100.0 %" in err and "wrote" in out
+    # --quiet: no progress, but the line that says what was written stays
     code, out, err = run(capsys, "convert", src, tmp_path / "b.wav", "--to", 22050, "--quiet")
+    assert code == 0 and err == "" and out.startswith("wrote ") and out.count("\n") == 1
+    code, out, err = run(capsys, "convert", src, tmp_path / "c.wav", "--to", 22050, "--silent")
     assert code == 0 and err == "" and out == ""
 
 
@@ -218,7 +221,8 @@ def test_convert_bad_input_is_one_line_exit_2_and_nothing_written(capsys, tmp_au
     elif case == "same_path":
         args[2] = good
     elif case == "unmeetable":
-        args += ["--passband", 20000, "--stopband", 20001, "--attenuation", 200]
+        args += ["--passband", 20000, "--stopband", 20001, "--attenuation", 200,
+                 "--arithmetic", "float64"]
     elif case == "flac_float":
         args[2] = tmp_path / "out.flac"
         args += ["--bits", "32f"]

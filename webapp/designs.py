@@ -8,15 +8,40 @@ import json
 import threading
 
 from webapp.jsontools import jsonable
-from webapp.dsp.design import design as design_filter
+from webapp.dsp.design import design as design_filter, estimate
 from webapp.dsp.spec import preset
 from webapp.dsp.stages import choose_plan
 from webapp.figures import design_view, plans_view
 
-__all__ = ["DesignCache", "design_key", "PLAYBACK_PRESET"]
+__all__ = ["DesignCache", "design_key", "design_estimate", "PLAYBACK_PRESET", "EXTREME_NUMTAPS",
+           "EXTREME_LATENCY_MS"]
 
 # Renditions for the listening area are brought to the playback rate at this preset.
 PLAYBACK_PRESET = "archival_master"
+
+
+#: Above these a design is "extreme": the page shows the estimate and asks before designing
+#: (100 000 taps take seconds to design and measure; 50 ms of delay is audible against picture).
+EXTREME_NUMTAPS = 100_000
+EXTREME_LATENCY_MS = 50.0
+
+
+def design_estimate(spec, fs_in, fs_out):
+    """The order estimate of a design (no design made), and whether it is extreme.
+
+    Returns a dict: :meth:`webapp.dsp.design.Estimate.figures` plus ``extreme`` (bool),
+    ``reasons`` (plain words) and ``limits`` (``numtaps``, ``latency_ms``).
+    """
+    est = estimate(spec, fs_in, fs_out)
+    reasons = []
+    if est.numtaps > EXTREME_NUMTAPS:
+        reasons.append(f"about {est.numtaps:,} taps (more than {EXTREME_NUMTAPS:,})"
+                       .replace(",", " "))
+    if est.latency_ms is not None and est.latency_ms > EXTREME_LATENCY_MS:
+        reasons.append(f"about {est.latency_ms:.0f} ms of delay (more than "
+                       f"{EXTREME_LATENCY_MS:g} ms)")
+    return dict(est.figures(), extreme=bool(reasons), reasons=reasons,
+                limits=dict(numtaps=EXTREME_NUMTAPS, latency_ms=EXTREME_LATENCY_MS))
 
 
 def design_key(spec, fs_in, fs_out):

@@ -44,11 +44,20 @@ SPECTRUM_EXCERPT_S = 5.0
 # Excerpts are converted with this margin on both sides, so start-up and ring-out stay outside.
 MARGIN_S = 0.1
 #: Our own palette: ink, a deep sea green for the filter, rust for the mask, slate for limits,
-#: blue for the source and green for the output.
+#: blue for the source and green for the output; the page's plots and the sheet both use it
+#: (served to the page in GET /api/options).
 PALETTE = {
     "ink": "#1f2a30", "muted": "#5b6770", "grid": "#e4e1da", "paper": "#ffffff",
-    "plot": "#fbfaf7", "filter": "#16697a", "mask": "#b4532a", "limit": "#5b6770",
-    "source": "#4b5f8a", "output": "#2c8c5a", "prering": "rgba(180, 83, 42, 0.16)",
+    "plot": "#fbfaf7", "axis": "#b9b6ad", "filter": "#16697a", "mask": "#b4532a",
+    "limit": "#5b6770", "source": "#4b5f8a", "output": "#2c8c5a",
+    "prering": "rgba(180, 83, 42, 0.16)", "prering_text": "#8a4a20",
+    "passband_fill": "rgba(44, 140, 90, 0.14)", "passband_line": "rgba(44, 120, 80, 0.7)",
+    "transition_fill": "rgba(120, 120, 120, 0.12)", "transition_line": "rgba(120, 120, 120, 0.5)",
+    "stopband_fill": "rgba(180, 83, 42, 0.12)", "alias_fill": "rgba(214, 150, 40, 0.40)",
+    "filter_faint": "rgba(22, 105, 122, 0.45)", "source_faint": "rgba(75, 95, 138, 0.35)",
+    "measured": "#7a4f96", "measured_faint": "rgba(122, 79, 150, 0.28)", "predicted": "#2b2b2b",
+    "envelope": "rgba(75, 95, 138, 0.55)", "loudness": "#2c8c5a", "full_scale": "#b4332a",
+    "over": "#d98a1e", "excerpt": "rgba(22, 105, 122, 0.14)", "label_bg": "rgba(255, 255, 255, 0.85)",
 }
 
 

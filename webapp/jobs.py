@@ -14,6 +14,11 @@ Conventions
   :func:`webapp.dsp.polyphase.output_length`; the output format is :func:`webapp.media.output_plan`.
 * With a true-peak ceiling or a loudness target the source is read twice (``passes == 2``): the
   first pass measures the converted signal at unity gain, the second writes it.
+* A job may carry a time base (a drift correction: a real ratio, a start and the reference's
+  length; :class:`webapp.dsp.timebase.TimeBase`) or a speed change (an exact factor p/q, also
+  the way to take a file at a stated true rate; :class:`webapp.dsp.rates.SpeedChange`). Its plan
+  is then :func:`webapp.dsp.timebase.timebase_design` or :func:`webapp.dsp.speed.speed_design`
+  and its length the time base's or the speed change's; :func:`_route_of` decides which.
 """
 
 from dataclasses import dataclass, field, replace
@@ -25,9 +30,11 @@ from .delivery import Delivery
 from .dsp.channels import output_channels
 from .dsp.errors import ParameterError
 from .dsp.polyphase import output_length
-from .dsp.rates import validate_rate
+from .dsp.rates import SpeedChange, speed_change, true_rate_change, validate_rate
 from .dsp.spec import Spec
+from .dsp.speed import speed_design
 from .dsp.stages import as_plan, verified_plan
+from .dsp.timebase import TimeBase, timebase_design
 
 __all__ = ["Job", "prepare", "run", "convert_file", "rerun", "Rerun", "RecipeMismatch",
            "output_name", "BLOCK_FRAMES", "EXIT_RECIPE_MISMATCH", "EXIT_DELIVERY_NOT_MET",
@@ -78,6 +85,10 @@ class Job:
     filter_applied : bool
         False for a same-rate job that did not ask for the filter: the delivery chain alone
         (layout, gain, limiter, dither, format) runs, the samples pass through unfiltered.
+    time_base : TimeBase or None
+        A drift correction: the converter runs at its real ratio, start and length.
+    speed : SpeedChange or None
+        A speed change by an exact factor (the plan is designed for it).
     """
 
     source: str
@@ -93,6 +104,8 @@ class Job:
     block_frames: int = BLOCK_FRAMES
     channels_out: int = 0
     filter_applied: bool = True
+    time_base: TimeBase | None = None
+    speed: SpeedChange | None = None
 
     @property
     def fs_in(self):
@@ -132,8 +145,53 @@ def _block_frames(value):
     return value
 
 
+def _route_of(spec, fs_in, fs_out, *, plan, time_base, speed, true_rate_hz):
+    """(plan, frames_out function, time base, speed change): the one place that decides how a
+    job converts: an ordinary route, a time base, or a speed change (a stated true rate is one).
+    """
+    asked = [n for n, v in (("time_base", time_base), ("speed", speed),
+                            ("true_rate_hz", true_rate_hz)) if v is not None]
+    if len(asked) > 1:
+        raise ParameterError(f"a conversion takes one of time_base, speed and true_rate_hz, got "
+                             f"{' and '.join(asked)}", asked[1])
+    if time_base is not None:
+        if not isinstance(time_base, TimeBase):
+            time_base = TimeBase.from_dict(time_base)
+        if (time_base.fs_in, time_base.fs_out) != (fs_in, fs_out):
+            raise ParameterError(f"the time base converts {time_base.fs_in} -> "
+                                 f"{time_base.fs_out} Hz but the source is {fs_in} Hz and the "
+                                 f"target {fs_out} Hz", "time_base")
+        plan = as_plan(plan if plan is not None else timebase_design(spec, time_base))
+        if plan.multistage or plan.stages[0].path != "arbitrary":
+            raise ParameterError("a time base needs a single-stage design on the arbitrary-ratio "
+                                 "path (webapp.dsp.timebase.timebase_design)", "design")
+        return plan.require_met(), time_base.output_length, time_base, None
+    if true_rate_hz is not None:
+        speed = true_rate_change(fs_in, true_rate_hz, fs_out)
+    elif speed is not None and not isinstance(speed, SpeedChange):
+        speed = speed_change(fs_in, fs_out, speed)
+    if speed is not None:
+        if (speed.fs_in, speed.fs_out) != (fs_in, fs_out):
+            raise ParameterError(f"the speed change converts {speed.fs_in} -> {speed.fs_out} Hz "
+                                 f"but the source is {fs_in} Hz and the target {fs_out} Hz",
+                                 "speed")
+        plan = as_plan(plan if plan is not None else speed_design(spec, speed)).require_met()
+        if (plan.up, plan.down) != (speed.up, speed.down):
+            raise ParameterError(f"the design converts by {plan.up}/{plan.down} but the speed "
+                                 f"change needs {speed.up}/{speed.down}", "design")
+        return plan, speed.output_length, None, speed
+    if plan is None:
+        plan = verified_plan(spec, fs_in, fs_out)
+    plan = as_plan(plan).require_met()
+    if (plan.fs_in, plan.fs_out) != (fs_in, fs_out):
+        raise ParameterError(f"the design converts {plan.fs_in} -> {plan.fs_out} Hz but the "
+                             f"source is {fs_in} Hz and the target {fs_out} Hz", "design")
+    return plan, (lambda frames: output_length(frames, plan.up, plan.down)), None, None
+
+
 def prepare(source, target, *, fs_out, spec=None, delivery=None, plan=None,
-            block_frames=BLOCK_FRAMES, probe=None, filter_same_rate=False):
+            block_frames=BLOCK_FRAMES, probe=None, time_base=None, speed=None,
+            true_rate_hz=None, filter_same_rate=False):
     """Check and decide everything about a conversion; write nothing.
 
     Parameters
@@ -148,6 +206,14 @@ def prepare(source, target, *, fs_out, spec=None, delivery=None, plan=None,
     block_frames : int
     probe : media.Probe, optional
         The source's probe, when the caller has it.
+    time_base : TimeBase or dict, optional
+        Correct a drifting clock: convert by the time base's real ratio, shift by its offset and
+        deliver its length (``fs_out`` must be its ``fs_out``).
+    speed : SpeedChange or "P/Q", optional
+        Play the source p/q times as fast (pitch and pace), delivered at ``fs_out``.
+    true_rate_hz : int, Fraction or "N/D", optional
+        Take the source at this true rate instead of its header's (a speed change by
+        true / header rate).
     filter_same_rate : bool, optional
         Run the filter even when the rate does not change. Default False: a same-rate job
         passes the samples through and runs only the delivery chain.
@@ -166,17 +232,19 @@ def prepare(source, target, *, fs_out, spec=None, delivery=None, plan=None,
     src = probe if probe is not None else media.probe(source)
     fs_out = validate_rate(fs_out, field="fs_out")
     media.refuse_same_file(source, target)
-    if plan is None:
-        plan = verified_plan(spec, src.rate_hz, fs_out)
-    plan = as_plan(plan).require_met()
-    if (plan.fs_in, plan.fs_out) != (src.rate_hz, fs_out):
-        raise ParameterError(f"the design converts {plan.fs_in} -> {plan.fs_out} Hz but the "
-                             f"source is {src.rate_hz} Hz and the target {fs_out} Hz", "design")
+    plan, length, time_base, speed = _route_of(spec, src.rate_hz, fs_out, plan=plan,
+                                               time_base=time_base, speed=speed,
+                                               true_rate_hz=true_rate_hz)
+    frames_out = length(src.frames)
+    if frames_out < 1:
+        raise ParameterError(f"the conversion would deliver no frames (the time base starts "
+                             f"after the end of the {src.frames}-frame source)", "time_base")
     if not isinstance(filter_same_rate, bool):
         raise ParameterError(f"filter_same_rate must be true or false, got {filter_same_rate!r}",
                              "filter_same_rate")
-    filter_applied = filter_same_rate or src.rate_hz != fs_out
-    frames_out = output_length(src.frames, plan.up, plan.down)
+    # a time base or a speed change re-times the samples even at the same nominal rate
+    filter_applied = (filter_same_rate or src.rate_hz != fs_out or time_base is not None
+                      or speed is not None)
     channels_out = output_channels(src.channels, delivery.channel_layout,
                                    pick=delivery.pick_channel)
     out = media.output_plan(target, rate_hz=fs_out, channels=channels_out, bits=delivery.bits,
@@ -187,8 +255,8 @@ def prepare(source, target, *, fs_out, spec=None, delivery=None, plan=None,
     passes = 2 if (delivery.ceiling_dbtp is not None or delivery.loudness_lufs is not None) else 1
     return Job(source=source, target=target, probe=src, spec=plan.spec, fs_out=fs_out,
                delivery=delivery, plan=plan, output=out, frames_out=frames_out, passes=passes,
-               block_frames=_block_frames(block_frames), channels_out=channels_out,
-               filter_applied=filter_applied)
+               block_frames=_block_frames(block_frames), time_base=time_base, speed=speed,
+               channels_out=channels_out, filter_applied=filter_applied)
 
 
 def run(job, *, progress=None, cancel=None):
@@ -294,7 +362,8 @@ def prepare_rerun(recipe, source, target, *, probe=None, plan=None):
     recipe.check_source(source)
     return prepare(source, target, fs_out=recipe.fs_out, spec=recipe.spec,
                    delivery=recipe.delivery, block_frames=recipe.block_frames, probe=probe,
-                   plan=plan, filter_same_rate=recipe.filter_applied)
+                   plan=plan, time_base=recipe.time_base, speed=recipe.speed,
+                   filter_same_rate=recipe.filter_applied)
 
 
 def rerun(recipe, source, target, *, progress=None, cancel=None, job=None):

@@ -1,6 +1,7 @@
 """Listening: renditions of an excerpt (original, converted, difference) level-matched and
 time-aligned at the playback rate, and the statistics of blind trials (no Flask here)."""
 
+from fractions import Fraction
 import math
 import os
 
@@ -13,15 +14,21 @@ from webapp.dsp.polyphase import convert
 from webapp.designs import PLAYBACK_PRESET
 from webapp.figures import MARGIN_S, check_excerpt, read_frames
 
-__all__ = ["make_renditions", "binomial_tail", "RENDITION_MIN_S"]
+__all__ = ["make_renditions", "binomial_tail", "RENDITION_MIN_S", "BLIND_TRIAL_COUNTS",
+           "BLIND_TRIAL_DEFAULT"]
 
 RENDITION_MIN_S = 0.5
+#: Trials a blind session can have; ten is the default (with 9 of 10 right, p = 0.011).
+BLIND_TRIAL_COUNTS = (6, 8, 10, 12, 16, 20)
+BLIND_TRIAL_DEFAULT = 10
 
 
 def binomial_tail(correct, trials):
     """P(at least ``correct`` right of ``trials`` by guessing, p = 1/2): the one-sided
     binomial tail, summed exactly."""
-    return math.fsum(math.comb(trials, k) for k in range(correct, trials + 1)) / 2.0 ** trials
+    # exact integers, divided once: 2.0 ** trials overflows a float beyond 1023 trials
+    return float(Fraction(sum(math.comb(trials, k) for k in range(correct, trials + 1)),
+                          1 << trials))
 
 
 def _grid_hz(*rates):

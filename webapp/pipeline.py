@@ -77,6 +77,8 @@ class ConversionResult:
     version: str = __version__
     recipe_check: dict | None = None    # a recipe re-run: reproduces, differences
     warnings: tuple = ()                # e.g. a source shorter than its header declares
+    time_base: object = None            # the job's TimeBase (a drift correction) or None
+    speed: object = None                # the job's SpeedChange or None
     channels_out: int | None = None     # after the channel layout (None: as the source)
     filter_applied: bool = True         # False: same rate in and out, no filter asked for
     delivery_report: dict = field(default_factory=dict)   # verification, limiter, passes
@@ -103,6 +105,10 @@ class ConversionResult:
         )
         if self.recipe_check is not None:
             d["recipe_check"] = dict(self.recipe_check)
+        if self.time_base is not None:
+            d["time_base"] = self.time_base.to_dict()
+        if self.speed is not None:
+            d["speed"] = self.speed.to_dict()
         return d
 
 
@@ -323,7 +329,8 @@ class _Again(Exception):
 def _converter(job):
     if not job.filter_applied:
         return _PassThrough(job.channels_out)
-    return make_converter(job.plan, channels=job.channels_out, dtype=job.plan.spec.arithmetic)
+    return make_converter(job.plan, channels=job.channels_out, dtype=job.plan.spec.arithmetic,
+                          time_base=job.time_base)
 
 
 def _layout(job):
@@ -523,14 +530,16 @@ def _execute(job, *, progress, cancel, tags_comment):
         passes=job.passes, block_frames=int(job.block_frames),
         source_sha256=media.sha256_file(source), output_sha256=media.sha256_file(target),
         warnings=warnings, channels_out=job.channels_out, filter_applied=job.filter_applied,
-        delivery_report=report)
+        delivery_report=report, time_base=job.time_base, speed=job.speed)
 
 
 def _carried_chunks(job):
     """(chunks, warnings): the source's bext / iXML / cue chunks, rescaled, for a WAV output."""
     chunks = riffchunks.carried_chunks(job.source, job.fs_in, job.fs_out)
-    if not chunks or job.output.format == "WAV":
+    retimed = job.time_base is not None or job.speed is not None
+    if not chunks or (job.output.format == "WAV" and not retimed):
         return chunks, ()
     names = ", ".join(sorted({c[0].decode("latin-1").strip() for c in chunks}))
-    return [], (f"the source's {names} chunks are not carried into a {job.output.format} "
-                f"output (WAV outputs carry them)",)
+    why = ("a drift correction or speed change (their positions are not rescaled yet)" if retimed
+           else f"a {job.output.format} output (WAV outputs carry them)")
+    return [], (f"the source's {names} chunks are not carried into {why}",)

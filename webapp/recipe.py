@@ -17,6 +17,9 @@ Conventions
   ``"schema": "rateferry-recipe"`` or without ``version`` (a draft from before version 1) is
   refused: there is no released format to upgrade it from, and guessing could re-run a
   different filter.
+* A drift correction records its time base (``time_base``: the measured ratio as drift_ppm, the
+  offset and the length) and a speed change its factor (``speed``); both are optional fields of
+  version 1 (a recipe without them is an ordinary conversion), and a re-run uses them.
 * File names in recipes are base names only: a recipe travels, and the folders of the machine
   that wrote it mean nothing elsewhere (and are nobody else's business).
 * Files are written atomically: a temporary file in the target's folder, then ``os.replace``.
@@ -40,8 +43,10 @@ from .jsontools import jsonable, loads_checked
 from .oserrors import os_error_text
 from .dsp.channels import output_channels
 from .dsp.errors import ParameterError
+from .dsp.rates import SpeedChange, speed_change
 from .dsp.rates import route as make_route
 from .dsp.spec import Spec, spec_from_dict
+from .dsp.timebase import TimeBase
 
 __all__ = ["RECIPE_SCHEMA", "RECIPE_VERSION", "SCHEMA_PATH", "RECIPE_MAX_BYTES", "Recipe",
            "recipe_from_result", "write_recipe", "write_json_atomic", "load_recipe",
@@ -196,6 +201,10 @@ class Recipe:
     source_name, source_sha256, output_sha256 : str
     version : int
         The version the file was written in (before any upgrade).
+    time_base : TimeBase or None
+        The drift correction the conversion applied.
+    speed : SpeedChange or None
+        The speed change the conversion applied.
     data : dict
         The whole recipe (current version), as plain JSON types.
     """
@@ -210,6 +219,8 @@ class Recipe:
     output_sha256: str
     version: int
     data: dict = field(repr=False)
+    time_base: TimeBase | None = None
+    speed: SpeedChange | None = None
     filter_applied: bool = True
 
     def to_dict(self):
@@ -311,6 +322,9 @@ def recipe_from_result(result, *, block_frames=None, created=None, source_name=N
     """
     probe = result.source_probe
     design = result.plan
+    speed = getattr(result, "speed", None)
+    time_base = getattr(result, "time_base", None)
+    up, down = (speed.up, speed.down) if speed is not None else (design.up, design.down)
     data = {
         "schema": RECIPE_SCHEMA,
         "version": RECIPE_VERSION,
@@ -336,8 +350,8 @@ def recipe_from_result(result, *, block_frames=None, created=None, source_name=N
             "channels": int(result.channels_out or result.channels),
             "frames": int(result.frames_out),
         },
-        "route": {"fs_in": int(design.fs_in), "fs_out": int(design.fs_out),
-                  "up": int(design.up), "down": int(design.down)},
+        "route": {"fs_in": int(result.fs_in), "fs_out": int(result.fs_out),
+                  "up": int(up), "down": int(down)},
         "spec": jsonable(result.spec.to_dict()),
         "design": jsonable(_without_timings(design.figures())),
         "delivery": jsonable(recipe_delivery(result.delivery)),
@@ -348,6 +362,10 @@ def recipe_from_result(result, *, block_frames=None, created=None, source_name=N
         "write_passes": int((result.delivery_report or {}).get("write_passes", 1)),
         "filter_applied": bool(result.filter_applied),
     }
+    if time_base is not None:
+        data["time_base"] = jsonable(time_base.to_dict())
+    if speed is not None:
+        data["speed"] = jsonable(speed.to_dict())
     validate_recipe(data)
     return data
 
@@ -507,18 +525,27 @@ def load_recipe(source):
     validate_recipe(data)
 
     rt = data["route"]
+    time_base, speed = _time_base_of(data), _speed_of(data)
     try:
         expected = make_route(rt["fs_in"], rt["fs_out"])
     except ParameterError as exc:
         raise ParameterError(f"recipe route: {exc.message}", f"route.{exc.field}") from None
+    design_rates = (rt["fs_in"], rt["fs_out"])
+    if speed is not None:       # a speed change runs its own exact factor, designed on its rates
+        expected = speed
+        design_rates = speed.design_rates()
     if (_as_int(rt["up"]), _as_int(rt["down"])) != (expected.up, expected.down):
         raise ParameterError(
             f"recipe route up/down must be {expected.up}/{expected.down} for "
             f"{expected.fs_in} -> {expected.fs_out} Hz, got {rt['up']}/{rt['down']}", "route")
     checks = [("source.rate_hz", data["source"]["rate_hz"], rt["fs_in"]),
               ("output.rate_hz", data["output"]["rate_hz"], rt["fs_out"]),
-              ("design.fs_in", data["design"]["fs_in"], rt["fs_in"]),
-              ("design.fs_out", data["design"]["fs_out"], rt["fs_out"])]
+              ("design.fs_in", data["design"]["fs_in"], design_rates[0]),
+              ("design.fs_out", data["design"]["fs_out"], design_rates[1])]
+    for what, part in (("time_base", time_base), ("speed", speed)):
+        if part is not None:
+            checks += [(f"{what}.fs_in", part.fs_in, rt["fs_in"]),
+                       (f"{what}.fs_out", part.fs_out, rt["fs_out"])]
     for name, got, want in checks:
         if got != want:
             raise ParameterError(f"recipe field {name} must equal {want} (the route), got {got}",
@@ -545,4 +572,33 @@ def load_recipe(source):
                   spec=spec, fs_in=int(rt["fs_in"]), fs_out=int(rt["fs_out"]),
                   delivery=delivery, block_frames=int(data["block_frames"]),
                   source_name=data["source"]["name"], source_sha256=data["source"]["sha256"],
-                  output_sha256=data["output"]["sha256"], version=written, data=data)
+                  output_sha256=data["output"]["sha256"], version=written, data=data,
+                  time_base=time_base, speed=speed)
+
+
+def _time_base_of(data):
+    if "time_base" not in data:
+        return None
+    tb = data["time_base"]
+    try:
+        return TimeBase.from_dict({k: _as_int(v) if k in ("fs_in", "fs_out", "frames_out") else v
+                                   for k, v in tb.items()})
+    except ParameterError as exc:
+        raise ParameterError(f"recipe time_base: {exc.message}",
+                             f"time_base.{exc.field}") from None
+
+
+def _speed_of(data):
+    if "speed" not in data:
+        return None
+    sp = data["speed"]
+    try:
+        change = speed_change(sp["fs_in"], sp["fs_out"], (_as_int(sp["speed_num"]),
+                                                          _as_int(sp["speed_den"])))
+    except ParameterError as exc:
+        raise ParameterError(f"recipe speed: {exc.message}", f"speed.{exc.field}") from None
+    if (_as_int(sp["up"]), _as_int(sp["down"])) != (change.up, change.down):
+        raise ParameterError(f"recipe speed up/down must be {change.up}/{change.down} for the "
+                             f"factor {change.speed_num}/{change.speed_den}, got "
+                             f"{sp['up']}/{sp['down']}", "speed")
+    return change

@@ -82,6 +82,8 @@ export const recordings = () => get(urlFor('recordings'));
 export const recording = (id) => get(urlFor('recording', { id }));
 export const deleteRecording = (id) => call('DELETE', urlFor('recording', { id }));
 export const design = (body, signal) => post(urlFor('designs'), body, { signal });
+export const estimate = (body, signal) => post(urlFor('design_estimate'), body, { signal });
+export const overview = (id, columns, signal) => get(`${urlFor('recording_overview', { id })}?columns=${encodeURIComponent(columns)}`, { signal });
 export const designPlans = (id, signal) => get(config.urls.design_plans ? urlFor('design_plans', { id }) : `${urlFor('design', { id })}/plans`, { signal });
 export const audit = (body, signal) => post(urlFor('audits'), body, { signal });
 export const spectra = (body, signal) => post(urlFor('spectra'), body, { signal });
@@ -92,6 +94,9 @@ export const cancelConversion = (id) => post(urlFor('conversion_cancel', { id })
 export const blindTrials = (id) => get(urlFor('blind_trials', { id }));
 export const postBlindTrials = (id, body) => post(urlFor('blind_trials', { id }), body);
 export const rendition = (body, signal) => post(urlFor('renditions'), body, { signal });
+export const drift = (body, signal) => post(urlFor('drift'), body, { signal });
+export const driftListen = (body, signal) => post(urlFor('drift_listen'), body, { signal });
+export const startDriftConversion = (body) => post(urlFor('drift_conversions'), body);
 export const clearOld = (days) => post(urlFor('clear'), { older_than_days: days });
 export const startBatch = (body) => post(urlFor('batches'), body);
 export const batch = (id) => get(urlFor('batch', { id }));

@@ -1,19 +1,27 @@
-// The page's entry: read the server's config, build the store, start every view, load the demo.
+// The page's entry: read the server's config, build the store from the server's options (and
+// this browser's last-used settings), start every view, load the demo.
 
 import * as api from './api.js';
+import * as plots from './plots.js';
+import * as settings from './settings.js';
+import * as redesign from './redesign.js';
 import { createStore } from './state.js';
 import * as topbar from './views/topbar.js';
 import * as load from './views/load.js';
 import * as route from './views/route.js';
-import * as convert from './views/convert.js';
+import * as verdict from './views/verdict.js';
+import * as action from './views/action.js';
+import * as result from './views/result.js';
+import * as overview from './views/overview.js';
 import * as spectra from './views/spectra.js';
 import * as filter from './views/filter.js';
 import * as audit from './views/audit.js';
 import * as listen from './views/listen.js';
 import * as history from './views/history.js';
+import * as timebase from './views/timebase.js';
 import * as batch from './views/batch.js';
 
-const TABS = ['spectra', 'filter', 'audit', 'listen'];
+const TABS = ['spectra', 'filter', 'audit', 'listen', 'timebase'];
 
 function fatal(message) {
   const node = document.getElementById('app-status');
@@ -47,8 +55,15 @@ function setupTabs(state) {
   show(state.get('activeTab'));
 }
 
-function defaultTarget(rateHz) {
-  return rateHz === 48000 ? 44100 : 48000;
+/** The first of the server's default targets that differs from the recording's rate. */
+function defaultTarget(options, rateHz) {
+  return options.default_targets_hz.find((r) => r !== rateHz) || options.default_targets_hz[0];
+}
+
+/** The delivery a preset starts with: the server's default, with the preset's word length. */
+function presetDelivery(options, presetName) {
+  const bits = options.presets[presetName] && options.presets[presetName].bits;
+  return { ...options.default_delivery, ...(bits ? { bits } : {}) };
 }
 
 async function boot() {
@@ -69,12 +84,15 @@ async function boot() {
     design: null,
     designError: null,
     designBusy: false,
+    designEstimate: null,
     plans: null,
     spectra: null,
-    delivery: { bits: '24', dither: 'tpdf', dither_seed: 0, ceiling_dbtp: null, loudness_lufs: null },
-    format: 'flac',
+    delivery: null,
+    format: null,
+    excerpt: { start_s: 0, length_s: 10 },
     conversion: null,
     conversions: [],
+    notice: '',
     activeTab: 'spectra',
   });
   window.rateferry = { state };   // for the console and the browser tests: read-only use
@@ -82,12 +100,17 @@ async function boot() {
   topbar.init(document.getElementById('topbar'), state);
   load.init(document.getElementById('load-view'), state);
   route.init(document.getElementById('route-view'), state);
-  convert.init(document.getElementById('convert-view'), state);
+  verdict.init(document.getElementById('verdict-view'), state);
+  action.init(document.getElementById('action-view'), state);
+  overview.init(document.getElementById('overview-view'), state);
   spectra.init(document.getElementById('panel-spectra'), state);
   filter.init(document.getElementById('panel-filter'), state);
   audit.init(document.getElementById('panel-audit'), state);
   listen.init(document.getElementById('panel-listen'), state);
+  result.init(document.getElementById('result-view'), state);
+  timebase.init(document.getElementById('panel-timebase'), state);
   history.init(document.getElementById('history-view'), state);
+  redesign.start(state);
   batch.init(document.getElementById('batch-view'), state);
   setupTabs(state);
 
@@ -95,20 +118,28 @@ async function boot() {
   state.on('recording', (s) => {
     const r = s.route;
     if (s.recording && r && r.fs_out === s.recording.rate_hz) {
-      state.set({ route: { ...r, fs_out: defaultTarget(s.recording.rate_hz) } });
+      state.set({ route: { ...r, fs_out: defaultTarget(s.options, s.recording.rate_hz) } });
     }
   });
 
   try {
     const [options, list] = await Promise.all([api.options(), api.recordings()]);
-    state.set({ options });
+    plots.setPalette(options.palette);
     const recordings = list.recordings || [];
-    const first = recordings.find((r) => r.id === config.demo_recording_id) || recordings[0] || null;
+    const saved = settings.load(options);
+    const first = recordings.find((r) => saved && r.id === saved.recording_id)
+      || recordings.find((r) => r.id === config.demo_recording_id) || recordings[0] || null;
+    const presetName = saved && saved.route ? saved.route.preset : options.default_preset;
+    state.set({ options, format: (saved && saved.format) || options.default_format });
     state.set({
-      route: { fs_out: defaultTarget(first ? first.rate_hz : 44100), preset: options.default_preset, spec: {} },
+      route: (saved && saved.route) || { fs_out: defaultTarget(options, first ? first.rate_hz : 44100), preset: presetName, spec: {} },
+      delivery: (saved && saved.delivery) || presetDelivery(options, presetName),
+      excerpt: (saved && saved.excerpt) || { start_s: 0, length_s: 10 },
       recordings,
+      notice: saved ? 'Your last settings in this browser are back: route, mask, delivery and listening excerpt.' : '',
     });
     state.set({ recording: first });
+    settings.remember(state);
     document.body.dataset.ready = 'true';
   } catch (err) {
     fatal(`The page could not start: ${err.message}`);

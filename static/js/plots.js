@@ -4,25 +4,16 @@
 
 import * as fmt from './format.js';
 
-export const colours = {
-  ink: '#22303c',
-  muted: '#66717c',
-  grid: '#e4e2db',
-  source: '#2f6690',
-  target: '#c4572f',
-  response: '#2b2b2b',
-  allowed: 'rgba(70, 140, 105, 0.16)',
-  allowedLine: 'rgba(50, 120, 85, 0.7)',
-  transition: 'rgba(140, 140, 140, 0.13)',
-  forbidden: 'rgba(185, 65, 55, 0.13)',
-  forbiddenLine: 'rgba(165, 45, 40, 0.75)',
-  alias: 'rgba(224, 150, 30, 0.42)',
-  prering: 'rgba(224, 150, 30, 0.22)',
-  measured: '#7a4fa0',
-  predicted: '#2b2b2b',
-};
+// The server's palette (GET /api/options "palette"), set once at start by main.js.
+let colours = {};
 
-const FONT = { family: 'system-ui, -apple-system, "Segoe UI", Roboto, sans-serif', size: 12, color: colours.ink };
+/** Use the server's palette for every plot drawn from now on. */
+export function setPalette(palette) {
+  colours = { ...palette };
+}
+
+const FONT_FAMILY = 'system-ui, -apple-system, "Segoe UI", Roboto, sans-serif';
+const font = () => ({ family: FONT_FAMILY, size: 12, color: colours.ink });
 
 const CONFIG = {
   displaylogo: false,
@@ -41,9 +32,9 @@ function axis(title, extra = {}) {
     title: { text: title, standoff: 6 },
     gridcolor: colours.grid,
     zerolinecolor: colours.grid,
-    linecolor: '#b9b6ad',
+    linecolor: colours.axis,
     ticks: 'outside',
-    tickcolor: '#b9b6ad',
+    tickcolor: colours.axis,
     automargin: true,
     ...extra,
   };
@@ -51,12 +42,12 @@ function axis(title, extra = {}) {
 
 function baseLayout(extra = {}) {
   return {
-    font: FONT,
-    paper_bgcolor: '#ffffff',
-    plot_bgcolor: '#ffffff',
+    font: font(),
+    paper_bgcolor: colours.paper,
+    plot_bgcolor: colours.paper,
     margin: { l: 64, r: 24, t: 12, b: 48 },
     hovermode: 'x',
-    legend: { orientation: 'h', x: 0, xanchor: 'left', y: -0.2, yanchor: 'top', yref: 'paper', bgcolor: 'rgba(255,255,255,0.8)', font: { size: 11 } },
+    legend: { orientation: 'h', x: 0, xanchor: 'left', y: -0.2, yanchor: 'top', yref: 'paper', bgcolor: colours.label_bg, font: { size: 11 } },
     ...extra,
   };
 }
@@ -86,7 +77,7 @@ function vline(x, name, colour, label, { dash = 'dash', row = 0 } = {}) {
     annotation: {
       name, xref: 'x', yref: 'paper', x, y: 1, yanchor: 'top', xanchor: 'right', xshift: -3,
       yshift: -2 - 17 * row, showarrow: false, text: label, font: { size: 11, color: colour },
-      bgcolor: 'rgba(255,255,255,0.85)',
+      bgcolor: colours.label_bg,
     },
   };
 }
@@ -104,17 +95,20 @@ function hline(y, name, colour, label, yref = 'y') {
   };
 }
 
-const KIND_STYLE = {
-  allowed: { fill: colours.allowed, line: colours.allowedLine, label: 'passband (allowed)' },
-  transition: { fill: colours.transition, line: 'rgba(120,120,120,0.5)', label: 'transition band' },
-  forbidden: { fill: colours.forbidden, line: colours.forbiddenLine, label: 'stopband (forbidden)' },
-};
+function kindStyle(kind) {
+  const styles = {
+    allowed: { fill: colours.passband_fill, line: colours.passband_line, label: 'passband (allowed)' },
+    transition: { fill: colours.transition_fill, line: colours.transition_line, label: 'transition band' },
+    forbidden: { fill: colours.stopband_fill, line: colours.mask, label: 'stopband (forbidden)' },
+  };
+  return styles[kind] || styles.transition;
+}
 
 /** Mask polygons as filled traces; `yaxis` picks the axis they live on. */
 function maskTraces(mask, { yaxis = 'y', floorDb = null, showlegend = true } = {}) {
   const traces = [];
   for (const poly of (mask && mask.polygons) || []) {
-    const style = KIND_STYLE[poly.kind] || KIND_STYLE.transition;
+    const style = kindStyle(poly.kind);
     const y = poly.y_db.map((v) => (floorDb !== null && v < floorDb ? floorDb : v));
     traces.push({
       type: 'scatter', mode: 'lines', x: poly.x_hz, y, yaxis, fill: 'toself',
@@ -151,7 +145,7 @@ function finiteRange(values, { floor = -Infinity, pad = 5, span = 160 } = {}) {
 function nyquistLines(sourceNyq, targetNyq) {
   return [
     vline(sourceNyq, 'source_nyquist', colours.source, `source Nyquist ${fmt.rate(sourceNyq)}`, { row: 0 }),
-    vline(targetNyq, 'target_nyquist', colours.target, `target Nyquist ${fmt.rate(targetNyq)}`, { row: 1 }),
+    vline(targetNyq, 'target_nyquist', colours.output, `target Nyquist ${fmt.rate(targetNyq)}`, { row: 1 }),
   ];
 }
 
@@ -185,7 +179,7 @@ export function spectra(el, sp, { logX = false, response = null } = {}) {
     if (xs.length) {
       data.push({
         type: 'scatter', mode: 'lines', x: [...xs, xs[xs.length - 1], xs[0]],
-        y: [...ys, yr[0], yr[0]], fill: 'toself', fillcolor: colours.alias,
+        y: [...ys, yr[0], yr[0]], fill: 'toself', fillcolor: colours.alias_fill,
         line: { width: 0 }, hoverinfo: 'skip', meta: 'above_target_nyquist',
         name: 'source above the target Nyquist',
       });
@@ -199,7 +193,7 @@ export function spectra(el, sp, { logX = false, response = null } = {}) {
   });
   data.push({
     type: 'scatter', mode: 'lines', x: tgt.freqs_hz, y: tgt.psd_db, name: `target ${fmt.rate(tgt.rate_hz)}`,
-    meta: 'target_psd', line: { color: colours.target, width: 1.4 },
+    meta: 'target_psd', line: { color: colours.output, width: 1.4 },
     hovertemplate: '%{x:.0f} Hz<br>%{y:.1f} dB/Hz<extra>target</extra>',
   });
 
@@ -215,13 +209,13 @@ export function spectra(el, sp, { logX = false, response = null } = {}) {
   if (response) {
     data.push({
       type: 'scatter', mode: 'lines', x: response.freqs_hz, y: response.magnitude_db.map((v) => Math.max(v, y2min)),
-      yaxis: 'y2', name: 'filter gain', meta: 'filter_gain', line: { color: 'rgba(40,40,40,0.55)', width: 1 },
+      yaxis: 'y2', name: 'filter gain', meta: 'filter_gain', line: { color: colours.filter_faint, width: 1 },
       hovertemplate: '%{x:.0f} Hz<br>%{y:.2f} dB<extra>filter</extra>',
     });
   }
 
   const lines = nyquistLines(srcNyq, tgtNyq);
-  if (mask) lines.push(hline(-att, 'attenuation_floor', colours.forbiddenLine, `attenuation floor ${fmt.db(-att, 0)} (right axis)`, 'y2'));
+  if (mask) lines.push(hline(-att, 'attenuation_floor', colours.mask, `attenuation floor ${fmt.db(-att, 0)} (right axis)`, 'y2'));
 
   const layout = baseLayout({
     uirevision: `${src.rate_hz}-${tgt.rate_hz}-${logX}`,
@@ -247,12 +241,12 @@ export function magnitude(el, d, { logX = false } = {}) {
     ...maskTraces(mask, { floorDb: floor }),
     {
       type: 'scatter', mode: 'lines', x: d.response.freqs_hz, y: d.response.magnitude_db.map((v) => Math.max(v, floor)),
-      name: 'filter response', meta: 'response', line: { color: colours.response, width: 1.3 },
+      name: 'filter response', meta: 'response', line: { color: colours.filter, width: 1.3 },
       hovertemplate: '%{x:.0f} Hz<br>%{y:.2f} dB<extra></extra>',
     },
   ];
   const lines = nyquistLines(mask.fs_in_nyquist_hz, mask.fs_out_nyquist_hz);
-  lines.push(hline(-att, 'attenuation_floor', colours.forbiddenLine, `required rejection ${fmt.db(-att, 0)}`));
+  lines.push(hline(-att, 'attenuation_floor', colours.mask, `required rejection ${fmt.db(-att, 0)}`));
   const maxHz = d.response.span_hz || Math.max(mask.fs_in_nyquist_hz, mask.fs_out_nyquist_hz) * 2;
   const layout = baseLayout({
     uirevision: `${d.fs_in}-${d.fs_out}-${logX}`,
@@ -275,12 +269,12 @@ export function passband(el, d, { fit = false } = {}) {
   const data = [
     {
       type: 'scatter', mode: 'lines', x: [0, edge, edge, 0, 0], y: [r, r, -r, -r, r], fill: 'toself',
-      fillcolor: colours.allowed, line: { color: colours.allowedLine, width: 1, dash: 'dot' },
+      fillcolor: colours.passband_fill, line: { color: colours.passband_line, width: 1, dash: 'dot' },
       name: `allowed ±${fmt.ripple(r)}`, meta: 'ripple_limits', hoverinfo: 'skip',
     },
     {
       type: 'scatter', mode: 'lines', x: pb.freqs_hz, y: pb.magnitude_db, name: 'filter gain',
-      meta: 'passband', line: { color: colours.response, width: 1.3 },
+      meta: 'passband', line: { color: colours.filter, width: 1.3 },
       hovertemplate: '%{x:.0f} Hz<br>%{y:.5f} dB<extra></extra>',
     },
   ];
@@ -306,7 +300,7 @@ export function impulse(el, d) {
     annotations.push({
       name: 'prering', xref: 'x', yref: 'paper', x: (im.prering_start_ms) / 2, y: 1, yanchor: 'bottom',
       showarrow: false, text: `pre-ringing ${fmt.ms(im.prering_ms)} before the peak`,
-      font: { size: 11, color: '#8a5a00' },
+      font: { size: 11, color: colours.prering_text },
     });
   } else {
     annotations.push({
@@ -317,7 +311,7 @@ export function impulse(el, d) {
   shapes.push({ type: 'line', name: 'peak', xref: 'x', yref: 'paper', x0: 0, x1: 0, y0: 0, y1: 1, line: { color: colours.muted, width: 1, dash: 'dot' } });
   const data = [{
     type: 'scatter', mode: 'lines', x: im.time_ms, y: im.amplitude, name: 'impulse response',
-    meta: 'impulse', line: { color: colours.response, width: 1.2 },
+    meta: 'impulse', line: { color: colours.filter, width: 1.2 },
     hovertemplate: '%{x:.3f} ms<br>%{y:.4g}<extra></extra>',
   }];
   const layout = baseLayout({
@@ -343,7 +337,7 @@ export function groupDelay(el, d) {
     }
   });
   const lines = [
-    vline(d.mask.passband_hz, 'passband_edge', colours.allowedLine, `passband edge ${fmt.hz(d.mask.passband_hz)}`),
+    vline(d.mask.passband_hz, 'passband_edge', colours.passband_line, `passband edge ${fmt.hz(d.mask.passband_hz)}`),
   ];
   const layout = baseLayout({
     uirevision: `${d.fs_in}-${d.fs_out}`,
@@ -372,7 +366,7 @@ export function planCost(el, plans) {
   el.style.height = `${Math.max(140, 30 * plans.length + 70)}px`;
   return react(el, [{
     type: 'bar', orientation: 'h', y: labels, x: plans.map((p) => p.mmac_per_second),
-    marker: { color: plans.map((p) => (p.chosen ? colours.source : 'rgba(47,102,144,0.35)')) },
+    marker: { color: plans.map((p) => (p.chosen ? colours.source : colours.source_faint)) },
     text: plans.map((p) => `${fmt.num(p.mmac_per_second, 1)} MMAC/s`), textposition: 'auto',
     hovertemplate: '%{y}: %{x:.2f} MMAC/s<extra></extra>', meta: 'plan_cost',
   }], layout);
@@ -391,7 +385,7 @@ export function auditArtefacts(el, c, { kind = 'alias', attenuationDb = null, ed
   if (c.worst_db && c.worst_db.some((v) => v !== null)) {
     data.push({
       type: 'scatter', mode: 'markers', x: c.input_hz, y: c.worst_db, name: `largest line of each tone`,
-      meta: 'audit_worst', marker: { color: 'rgba(122,79,160,0.28)', size: 4 },
+      meta: 'audit_worst', marker: { color: colours.measured_faint, size: 4 },
       hovertemplate: '%{x:.0f} Hz tone<br>%{y:.1f} dB<extra>largest line</extra>',
     });
   }
@@ -407,14 +401,14 @@ export function auditArtefacts(el, c, { kind = 'alias', attenuationDb = null, ed
     type: 'scatter', mode: 'markers', x: c.input_hz, y: c.measured_db, customdata: custom,
     name: `measured ${kind} (hollow: tone in the transition band, not judged)`, meta: 'audit_measured',
     marker: {
-      color: counts.map((v) => (v ? colours.measured : '#ffffff')), size: 5,
+      color: counts.map((v) => (v ? colours.measured : colours.paper)), size: 5,
       line: { color: colours.measured, width: 1 },
     },
     hovertemplate: `%{x:.0f} Hz tone → ${kind} at %{customdata[0]:.0f} Hz<br>%{y:.1f} dB<extra>measured</extra>`,
   });
   const lines = [];
-  if (Number.isFinite(attenuationDb)) lines.push(hline(-attenuationDb, 'audit_limit', colours.forbiddenLine, `mask: ${fmt.db(-attenuationDb, 0)}`));
-  if (Number.isFinite(edgeHz)) lines.push(vline(edgeHz, 'audit_edge', colours.target, `stopband edge ${fmt.hz(edgeHz)}`));
+  if (Number.isFinite(attenuationDb)) lines.push(hline(-attenuationDb, 'audit_limit', colours.mask, `mask: ${fmt.db(-attenuationDb, 0)}`));
+  if (Number.isFinite(edgeHz)) lines.push(vline(edgeHz, 'audit_edge', colours.output, `stopband edge ${fmt.hz(edgeHz)}`));
   const values = [...c.measured_db, ...(c.predicted_db || [])].filter((v) => v !== null && v > -390);
   const layout = baseLayout({
     xaxis: axis('input tone frequency', { tickformat: '~s', ticksuffix: 'Hz' }),
@@ -433,7 +427,7 @@ export function auditPassband(el, c, { rippleDb = null, edgeHz = null } = {}) {
   if (Number.isFinite(rippleDb) && Number.isFinite(edgeHz)) {
     data.push({
       type: 'scatter', mode: 'lines', x: [0, edgeHz, edgeHz, 0, 0], y: [rippleDb, rippleDb, -rippleDb, -rippleDb, rippleDb],
-      fill: 'toself', fillcolor: colours.allowed, line: { color: colours.allowedLine, width: 1, dash: 'dot' },
+      fill: 'toself', fillcolor: colours.passband_fill, line: { color: colours.passband_line, width: 1, dash: 'dot' },
       name: `allowed ±${fmt.ripple(rippleDb)}`, hoverinfo: 'skip', meta: 'audit_ripple_limits',
     });
   }
@@ -476,4 +470,104 @@ export function auditImpulse(el, c, { prering_ms = null } = {}) {
     name: 'measured impulse', meta: 'audit_impulse', line: { color: colours.measured, width: 1.1 },
     hovertemplate: '%{x:.3f} ms<br>%{y:.1f} dB<extra></extra>',
   }], layout);
+}
+
+// ------------------------------------------------------------------ overview
+
+/**
+ * The whole recording over time: the min/max envelope (left axis), short-term loudness (right
+ * axis), markers where samples reach full scale and where the true peak goes over, and the
+ * listening excerpt shaded. `o` is GET /api/recordings/<id>/overview; `excerpt` {start_s, length_s}.
+ */
+export function overview(el, o, excerpt = null) {
+  const t = o.time_s;
+  const data = [
+    { type: 'scatter', mode: 'lines', x: t, y: o.max, name: 'envelope', meta: 'overview_max', line: { color: colours.envelope, width: 0.8 }, hoverinfo: 'skip', showlegend: false },
+    {
+      type: 'scatter', mode: 'lines', x: t, y: o.min, name: 'waveform (min/max)', meta: 'overview_min', fill: 'tonexty',
+      fillcolor: colours.envelope, line: { color: colours.envelope, width: 0.8 },
+      hovertemplate: '%{x:.2f} s<extra></extra>',
+    },
+    {
+      type: 'scatter', mode: 'lines', x: t, y: o.short_term_lufs, yaxis: 'y2', name: 'short-term loudness (3 s)', meta: 'overview_loudness',
+      line: { color: colours.loudness, width: 1.3 }, connectgaps: false, hovertemplate: '%{x:.2f} s<br>%{y:.1f} LUFS<extra></extra>',
+    },
+  ];
+  const marker = (m, name, meta, y, colour, symbol) => ({
+    type: 'scatter', mode: 'markers', x: m.time_s, y: m.time_s.map(() => y), name: `${name} (${fmt.grouped(m.total)})`, meta,
+    marker: { color: colour, size: 8, symbol }, customdata: m.count,
+    hovertemplate: `%{x:.3f} s<br>%{customdata} ${name}<extra></extra>`,
+  });
+  data.push(marker(o.full_scale, 'samples at full scale', 'overview_full_scale', 1.08, colours.full_scale, 'triangle-down'));
+  data.push(marker(o.overs, 'true-peak overs', 'overview_overs', -1.08, colours.over, 'triangle-up'));
+  const shapes = [];
+  if (excerpt && Number.isFinite(excerpt.start_s)) {
+    shapes.push({
+      type: 'rect', name: 'excerpt', xref: 'x', yref: 'paper', x0: excerpt.start_s, x1: excerpt.start_s + excerpt.length_s,
+      y0: 0, y1: 1, fillcolor: colours.excerpt, line: { color: colours.filter, width: 1 }, layer: 'below',
+    });
+  }
+  const loud = o.short_term_lufs.filter(Number.isFinite);
+  const top = loud.length ? Math.ceil(Math.max(...loud) / 6) * 6 + 6 : 0;
+  const layout = baseLayout({
+    margin: { l: 48, r: 56, t: 6, b: 30 },
+    hovermode: 'x',
+    xaxis: axis('', { range: [0, o.duration_s], ticksuffix: ' s', showgrid: false, fixedrange: true }),
+    yaxis: axis('', { range: [-1.15, 1.15], tickvals: [-1, 0, 1], fixedrange: true, zeroline: false }),
+    yaxis2: axis('LUFS', { overlaying: 'y', side: 'right', range: [top - 60, top], dtick: 12, showgrid: false, fixedrange: true }),
+    legend: { orientation: 'h', x: 0, y: 1.02, yanchor: 'bottom', font: { size: 11 }, bgcolor: colours.label_bg },
+    shapes,
+  });
+  return react(el, data, layout);
+}
+
+/** Call fn(x) with the data x of a click on the plot (time, frequency). */
+export function onClick(el, fn) {
+  el.on('plotly_click', (e) => {
+    const p = e && e.points && e.points[0];
+    if (p && Number.isFinite(p.x)) fn(p.x);
+  });
+}
+
+// ------------------------------------------------------------------ time base
+
+/**
+ * Offset of the track against the reference over time: the per-window points (used ones
+ * filled, the rest hollow), the fitted line, and below it the residuals of the used points.
+ */
+export function timeBase(el, r) {
+  const p = r.points;
+  const pick = (arr, want) => arr.filter((_, i) => p.used[i] === want);
+  const data = [
+    {
+      type: 'scatter', mode: 'markers', x: pick(p.times_s, true), y: pick(p.offsets_ms, true),
+      name: 'window offsets (used)', meta: 'offsets_used', marker: { color: colours.source, size: 6 },
+      hovertemplate: '%{x:.1f} s<br>%{y:.3f} ms<extra></extra>',
+    },
+    {
+      type: 'scatter', mode: 'markers', x: pick(p.times_s, false), y: pick(p.offsets_ms, false),
+      name: 'windows left out', meta: 'offsets_unused',
+      marker: { color: colours.muted, size: 6, symbol: 'circle-open' },
+      hovertemplate: '%{x:.1f} s<br>%{y:.3f} ms (left out)<extra></extra>',
+    },
+    {
+      type: 'scatter', mode: 'lines', x: [0, r.duration_s], y: [r.offset_ms, r.offset_end_ms],
+      name: `fitted line: ${fmt.num(r.drift_ppm, 3)} ppm`, meta: 'fit',
+      line: { color: colours.target, width: 2 }, hoverinfo: 'skip',
+    },
+    {
+      type: 'scatter', mode: 'markers', x: pick(p.times_s, true), y: pick(p.residual_ms, true),
+      name: 'residual', meta: 'residuals', xaxis: 'x', yaxis: 'y2',
+      marker: { color: colours.measured, size: 5 },
+      hovertemplate: '%{x:.1f} s<br>%{y:.4f} ms<extra></extra>',
+    },
+  ];
+  const layout = baseLayout({
+    uirevision: `${r.reference}-${r.track}`,
+    hovermode: 'closest',
+    xaxis: axis('reference time, s', { range: [0, r.duration_s], anchor: 'y2' }),
+    yaxis: axis('track offset, ms', { domain: [0.36, 1] }),
+    yaxis2: axis('residual, ms', { domain: [0, 0.26] }),
+  });
+  return react(el, data, layout);
 }

@@ -21,6 +21,7 @@ CHROMIUM_ARGS = [
 ]
 ARTIFACTS = os.path.join(SOURCE_ROOT, "test-artifacts")
 VIEWPORT = {"width": 1500, "height": 1000}
+LAPTOP = {"width": 1280, "height": 800}
 
 
 def pytest_collection_modifyitems(items):
@@ -89,26 +90,59 @@ def context(browser):
     ctx.close()
 
 
-@pytest.fixture
-def page(context, server):
-    """A fresh page with the demo loaded and its first spectra drawn; fails on page errors."""
+@pytest.fixture(scope="session")
+def laptop_context(browser):
+    """A 1280 x 800 browser context: a laptop screen."""
+    ctx = browser.new_context(viewport=LAPTOP, accept_downloads=True)
+    yield ctx
+    ctx.close()
+
+
+def open_page(context, server):
+    """A fresh page with the demo loaded and its first spectra drawn, starting from the
+    defaults (this browser's remembered settings are cleared first); returns (page, errors)."""
     pg = context.new_page()
     errors = []
     pg.on("pageerror", lambda exc: errors.append(str(exc)))
     pg.set_default_timeout(30000)
+    pg.goto(server + "/api/health")
+    pg.evaluate("() => window.localStorage.clear()")
     pg.goto(server + "/")
+    wait_ready(pg)
+    return pg, errors
+
+
+def wait_ready(pg):
     pg.wait_for_selector("body[data-ready='true']")
     pg.wait_for_function("() => { const p = document.getElementById('plot-spectra'); "
                          "return p && p.data && p.data.length > 0; }")
+
+
+@pytest.fixture
+def ready():
+    """ready(page): wait until the (re)loaded page is drawn."""
+    return wait_ready
+
+
+@pytest.fixture
+def page(context, server):
+    """A fresh page with the demo loaded and its first spectra drawn; fails on page errors."""
+    pg, errors = open_page(context, server)
     yield pg
     pg.close()
     assert not errors, f"the page threw: {errors}"
 
 
 @pytest.fixture
-def shot(page):
-    """shot(name, top=True): a screenshot of the visible page in test-artifacts/<name>.png
-    (scrolled to the top first unless top=False)."""
+def laptop(laptop_context, server):
+    """The same at 1280 x 800."""
+    pg, errors = open_page(laptop_context, server)
+    yield pg
+    pg.close()
+    assert not errors, f"the page threw: {errors}"
+
+
+def _shooter(page):
     os.makedirs(ARTIFACTS, exist_ok=True)
 
     def take(name, top=True):
@@ -119,3 +153,16 @@ def shot(page):
         return path
 
     return take
+
+
+@pytest.fixture
+def shot(page):
+    """shot(name, top=True): a screenshot of the visible page in test-artifacts/<name>.png
+    (scrolled to the top first unless top=False)."""
+    return _shooter(page)
+
+
+@pytest.fixture
+def laptop_shot(laptop):
+    """shot() for the 1280 x 800 page."""
+    return _shooter(laptop)

@@ -3,7 +3,7 @@
 What is checked against something outside the page:
 * Nyquist limits are half the sample rate (Nyquist-Shannon; any DSP text, e.g. Oppenheim &
   Schafer, Discrete-Time Signal Processing, 1989, sec. 4.2).
-* The automatic passband edge is passband_fraction (0.9 in the music_delivery preset) of the
+* The automatic passband edge is passband_fraction (0.9 in the spoken_word_delivery preset) of the
   lower Nyquist, the stopband edge the lower Nyquist (the project's spec, webapp/dsp/spec.py,
   a common-practice default).
 * A converted file holds ceil(frames * up / down) frames (DESIGN.md, "Alignment"), with up/down
@@ -249,14 +249,15 @@ def test_conversion_runs_to_the_end_and_its_file_sheet_and_recipe_download(page,
         page.click("#download-file")
     path = tmp_path / d.value.suggested_filename
     d.value.save_as(path)
-    assert d.value.suggested_filename == "harbour_interview_44k1_48k_24bit.flac"
+    # the page opens on the spoken-word preset, which delivers 16-bit files
+    assert d.value.suggested_filename == "harbour_interview_44k1_48k_16bit.flac"
     src = sf.info(DEMO)
     ratio = Fraction(48000, src.samplerate)
     out = sf.info(str(path))
     assert out.samplerate == 48000
     assert out.channels == src.channels
     assert out.frames == math.ceil(src.frames * ratio.numerator / ratio.denominator)
-    assert out.subtype == "PCM_24"
+    assert out.subtype == "PCM_16"
     data, _ = sf.read(str(path))
     assert np.all(np.isfinite(data))
     assert 0 < np.max(np.abs(data)) <= 1.0
@@ -276,6 +277,8 @@ def test_conversion_runs_to_the_end_and_its_file_sheet_and_recipe_download(page,
     r.value.save_as(recipe_path)
     recipe = json.loads(recipe_path.read_text(encoding="utf-8"))
     assert json.dumps(recipe).count(conv["figures"]["output_sha256"]) >= 1
+    # the recipe is named as the command line and the sheet name it
+    assert r.value.suggested_filename == "harbour_interview_44k1_48k_16bit.recipe.json"
 
     # the history lists it, done
     item = page.locator(f"#history-list li[data-id='{conv['id']}']")
@@ -394,7 +397,15 @@ def test_long_conversion_shows_progress_with_eta_and_can_be_cancelled(page, shot
     status = page.inner_text("#convert-status")
     assert "frames read" in status and "left" in status and "so far" in status
     assert page.is_visible("#convert-cancel")
-    page.locator("#convert-view").scroll_into_view_if_needed()
+    # the list shows the same progress as the status line: both read the same conversion
+    running = page.evaluate("() => window.rateferry.state.get('conversion').id")
+    page.wait_for_selector(f"#history-list li[data-id='{running}']")
+    same = page.evaluate("""(id) => {
+        const li = document.querySelector(`#history-list li[data-id='${id}']`);
+        const bar = document.getElementById('convert-progress');
+        return li && [Number(li.dataset.percent), Math.round(Number(bar.value))];
+    }""", running)
+    assert same and same[0] == same[1]
     shot("10-conversion-progress", top=False)
     page.click("#convert-cancel")
     page.wait_for_function("() => document.getElementById('convert-status').textContent.startsWith('Cancelled')")

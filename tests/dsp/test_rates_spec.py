@@ -8,7 +8,7 @@ import pytest
 
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.rates import route, validate_rate
-from webapp.dsp.spec import PRESETS, Spec, preset, spec_from_dict
+from webapp.dsp.spec import DEFAULT_PRESET, PRESETS, Spec, preset, preset_bits, spec_from_dict
 
 
 @pytest.mark.parametrize("fs_in, fs_out, up, down", [
@@ -95,5 +95,10 @@ def test_presets_are_plain_specs_and_pinned():
     assert preset("archival_master").attenuation_db == 150.0
     assert preset("live_voice_pipeline").phase == "minimum"
     assert Spec() == Spec(passband_fraction=0.9, ripple_db=0.01, attenuation_db=120.0)
+    # the page and the command line start on spoken word (the demo is an interview); a preset
+    # that states a word length sets it
+    assert DEFAULT_PRESET == "spoken_word_delivery"
+    assert preset_bits("spoken_word_delivery") == "16" and preset_bits("archival_master") == "24"
+    assert preset_bits("music_delivery") is None
     with pytest.raises(ParameterError, match="preset must be one of"):
         preset("loud")

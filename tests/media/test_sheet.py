@@ -130,7 +130,8 @@ def converted(tmp_path_factory):
     out = folder / "interview_48k.wav"
     recipe = folder / "interview.recipe.json"
     html_path = folder / "interview.html"
-    code = main(["convert", str(src), str(out), "--to", "48000", "--bits", "16", "--dither",
+    code = main(["convert", str(src), str(out), "--to", "48000", "--preset", "music_delivery",
+                 "--bits", "16", "--dither",
                  "tpdf", "--seed", "7", "--ceiling", "-1", "--write-recipe", str(recipe),
                  "--sheet", str(html_path), "--title", "Episode 12", "--quiet"])
     assert code == 0
@@ -166,7 +167,7 @@ def test_convert_with_recipe_reproduces_the_output_bit_for_bit(converted, tmp_pa
     code, out, err = _run(capsys, "convert", converted["src"], tmp_path / "third.wav", "--recipe",
                           converted["recipe"], "--json")
     assert code == 0, err
-    assert json.loads(out)["reproduces_recipe"] is True
+    assert json.loads(out)["recipe"]["reproduces"] is True
 
 
 def test_recipe_with_a_different_source_gives_the_clear_error(converted, tmp_path, capsys):

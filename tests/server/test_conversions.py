@@ -299,3 +299,11 @@ def test_design_sheet_download_includes_the_blind_trials(client, headers, finish
     assert "Blind listening trials" in html
     assert finished["figures"]["output_sha256"] in html
     assert "ident.wav" in html
+
+
+@pytest.mark.parametrize("correct, trials", [(12, 16), (5100, 10000), (0, 3000)])
+def test_blind_trial_p_values_hold_for_thousands_of_trials(correct, trials):
+    from webapp.listening import binomial_tail
+    # reference: scipy.stats.binomtest, one-sided (at least `correct` right by guessing)
+    expected = stats.binomtest(correct, trials, 0.5, alternative="greater").pvalue
+    assert binomial_tail(correct, trials) == pytest.approx(expected, rel=1e-9)

@@ -70,7 +70,8 @@ def test_design_returns_figures_response_mask_impulse_and_verdict(client, header
 
 
 def test_impulse_and_group_delay_of_a_linear_phase_design(client, headers, music_48k_to_16k):
-    body = _post(client, headers, {"fs_in": 48000, "fs_out": 16000}).get_json()
+    body = _post(client, headers, {"fs_in": 48000, "fs_out": 16000,
+                                   "preset": "music_delivery"}).get_json()
     d = music_48k_to_16k
     imp = body["impulse"]
     t, a = np.asarray(imp["time_ms"]), np.asarray(imp["amplitude"])

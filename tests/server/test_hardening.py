@@ -13,10 +13,8 @@ import io
 import json
 import os
 import socket
-import threading
 import time
 
-import numpy as np
 import pytest
 import soundfile as sf
 

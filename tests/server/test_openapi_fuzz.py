@@ -16,7 +16,6 @@ import os
 
 import hypothesis
 import numpy as np
-import pytest
 import schemathesis
 import soundfile as sf
 from hypothesis import HealthCheck, Phase, given, settings, strategies as st
@@ -64,6 +63,9 @@ def _with_known_ids(case, ids, pick):
         for key in ("recording_id", "conversion_id", "design_id"):
             if key in case.body and pick(key):
                 case.body[key] = ids[key]
+        for key in ("reference_id", "track_id"):     # the time base pair: recordings too
+            if key in case.body and pick(key):
+                case.body[key] = ids["recording_id"]
     return case
 
 

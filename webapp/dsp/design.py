@@ -32,7 +32,7 @@ from .rates import route as make_route
 from .spec import Spec
 from .spectrum import dense_response, response_at
 
-__all__ = ["Measured", "Design", "design", "kaiser_beta", "kaiser_numtaps",
+__all__ = ["Measured", "Design", "Estimate", "design", "estimate", "kaiser_beta", "kaiser_numtaps",
            "herrmann_numtaps", "bellanger_numtaps", "measure", "interpolation_phases",
            "MAX_BANK_TAPS", "EQUIRIPPLE_AUTO_MAX", "EQUIRIPPLE_MAX", "LEAST_SQUARES_MAX"]
 
@@ -326,6 +326,76 @@ def _passband_group_delay_samples(h, rate, mask):
     return float(np.median(gd))
 
 
+@dataclass(frozen=True)
+class Estimate:
+    """What a design will cost, from the order formulas alone (no design made).
+
+    ``numtaps`` is Kaiser's estimate for the prototype the design starts from (the design may
+    grow it a few per cent until its measurement meets the mask); ``latency_ms`` is the delay of
+    that many linear-phase taps, None for minimum phase (whose delay is only known once
+    designed).
+    """
+
+    fs_in: int
+    fs_out: int
+    path: str
+    path_reason: str
+    phases: int
+    filter_rate_hz: float
+    numtaps: int
+    latency_ms: float | None
+
+    def figures(self):
+        return dict(fs_in=self.fs_in, fs_out=self.fs_out, path=self.path,
+                    path_reason=self.path_reason, phases=self.phases,
+                    filter_rate_hz=self.filter_rate_hz, numtaps=self.numtaps,
+                    latency_ms=self.latency_ms)
+
+
+def estimate(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
+    """The length, path and delay of the design for a route, without designing it (fast).
+
+    The path follows :func:`design`'s rule: the exact polyphase bank when Kaiser's estimate at
+    ``fs_in * up`` fits ``max_bank_taps``, else the arbitrary-ratio table.
+
+    Returns
+    -------
+    Estimate
+
+    Raises
+    ------
+    ParameterError
+        For invalid rates, an impossible mask, or a mask needing more than the length limit.
+    """
+    rt = make_route(fs_in, fs_out)
+    mask = spec.mask(rt)
+    a_design = max(mask.attenuation_db,
+                   -20 * math.log10(min(mask.passband_delta, mask.stopband_delta)))
+    rate = float(rt.prototype_rate)
+    est = _odd(kaiser_numtaps(a_design, (mask.stopband_hz - mask.passband_hz) / (rate / 2)))
+    if est <= max_bank_taps:
+        path, phases, numtaps = "polyphase", rt.up, est
+        path_reason = (f"exact {rt.up}/{rt.down} polyphase bank of about {est} taps "
+                       f"({rt.up} phases)")
+    else:
+        path = "arbitrary"
+        phases = interpolation_phases(mask.passband_hz, rt.fs_in, mask.attenuation_db)
+        rate = float(rt.fs_in * phases)
+        numtaps = _odd(kaiser_numtaps(a_design, (mask.stopband_hz - mask.passband_hz) / (rate / 2)))
+        if numtaps > MAX_NUMTAPS:
+            raise ParameterError(
+                f"the mask needs about {numtaps} taps in a {phases}-phase table (limit "
+                f"{MAX_NUMTAPS}); widen the transition band ({mask.passband_hz:g} to "
+                f"{mask.stopband_hz:g} Hz) or lower the attenuation", "stopband_hz")
+        path_reason = (f"the exact {rt.up}/{rt.down} bank would need about {est} taps (limit "
+                       f"{max_bank_taps}); bandlimited interpolation with a {phases}-phase table "
+                       f"and linear interpolation between phases is used instead")
+    latency = (numtaps - 1) / 2 / rate * 1000.0 if spec.phase == "linear" else None
+    return Estimate(fs_in=rt.fs_in, fs_out=rt.fs_out, path=path, path_reason=path_reason,
+                    phases=int(phases), filter_rate_hz=rate, numtaps=int(numtaps),
+                    latency_ms=latency)
+
+
 def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
     """Design, measure and cost the single-stage filter for converting ``fs_in`` to ``fs_out``.
 
@@ -349,31 +419,10 @@ def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
     t0 = time.perf_counter()
     rt = make_route(fs_in, fs_out)
     mask = spec.mask(rt)
-    rate = float(rt.prototype_rate)
-    width = (mask.stopband_hz - mask.passband_hz) / (rate / 2)
-    est = _odd(kaiser_numtaps(max(mask.attenuation_db,
-                                  -20 * math.log10(min(mask.passband_delta, mask.stopband_delta))),
-                              width))
-    if est <= max_bank_taps:
-        path = "polyphase"
-        path_reason = (f"exact {rt.up}/{rt.down} polyphase bank of about {est} taps "
-                       f"({rt.up} phases)")
-        phases = rt.up
-    else:
-        path = "arbitrary"
-        phases = interpolation_phases(mask.passband_hz, rt.fs_in, mask.attenuation_db)
-        rate = float(rt.fs_in * phases)
-        a_design = max(mask.attenuation_db,
-                       -20 * math.log10(min(mask.passband_delta, mask.stopband_delta)))
-        est_arb = _odd(kaiser_numtaps(a_design, (mask.stopband_hz - mask.passband_hz) / (rate / 2)))
-        if est_arb > MAX_NUMTAPS:
-            raise ParameterError(
-                f"the mask needs about {est_arb} taps in a {phases}-phase table (limit "
-                f"{MAX_NUMTAPS}); widen the transition band ({mask.passband_hz:g} to "
-                f"{mask.stopband_hz:g} Hz) or lower the attenuation", "stopband_hz")
-        path_reason = (f"the exact {rt.up}/{rt.down} bank would need about {est} taps (limit "
-                       f"{max_bank_taps}); bandlimited interpolation with a {phases}-phase table "
-                       f"and linear interpolation between phases is used instead")
+    guess = estimate(spec, fs_in, fs_out, max_bank_taps=max_bank_taps)
+    path, path_reason, phases = guess.path, guess.path_reason, guess.phases
+    rate = guess.filter_rate_hz
+    est_arb = guess.numtaps
     gain = float(phases)
     method, method_reason = _choose_method(spec, mask, rate)
     if path == "arbitrary" and method != "kaiser":
@@ -387,13 +436,13 @@ def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
     minimum = spec.phase == "minimum"
     # A minimum-phase filter is the spectral factor of a linear-phase one with the same magnitude
     # (half=False keeps the magnitude). Both bands must hold for that same magnitude.
-    h, method_used, estimate, iterations, measured, met, why = _design_linear(method, mask, rate, gain)
+    h, method_used, first_numtaps, iterations, measured, met, why = _design_linear(method, mask, rate, gain)
     if (h is None or not met) and method == "equiripple" and spec.method == "auto":
         # remez did not converge, or did not reach the mask within its length limit
         method = "kaiser"
         method_reason = (f"Parks-McClellan failed ({why or 'mask not met'}); Kaiser window "
                          "design used instead")
-        h, method_used, estimate, iterations, measured, met, why = _design_linear(method, mask,
+        h, method_used, first_numtaps, iterations, measured, met, why = _design_linear(method, mask,
                                                                                   rate, gain)
     if h is None:
         raise ParameterError(f"method {method} could not design this mask: {why}", "method")
@@ -434,7 +483,7 @@ def design(spec, fs_in, fs_out, *, max_bank_taps=MAX_BANK_TAPS):
     return Design(
         spec=spec, mask=mask, path=path, path_reason=path_reason, method=method_used,
         method_reason=method_reason, phase=spec.phase, taps=h, filter_rate_hz=rate,
-        phases=phases, delay_samples=int(delay), numtaps=numtaps, numtaps_estimate=int(estimate),
+        phases=phases, delay_samples=int(delay), numtaps=numtaps, numtaps_estimate=int(first_numtaps),
         iterations=int(iterations), taps_per_phase=per_phase, macs_per_output_sample=macs,
         mmac_per_second=macs * rt.fs_out / 1e6,
         latency_ms=float(latency_samples / rate * 1000.0), prering_ms=prering,

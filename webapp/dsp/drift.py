@@ -29,11 +29,11 @@ import math
 import numpy as np
 from scipy import stats
 
-from .design import design
 from .errors import ParameterError
 from .polyphase import make_converter
 from .rates import validate_rate
 from .spec import Spec
+from .stages import choose_plan
 from .timebase import TimeBase
 
 __all__ = ["DriftMeasurement", "measure_drift", "decimated_mono", "gcc_phat_delay",
@@ -105,10 +105,11 @@ class DriftMeasurement:
 @lru_cache(maxsize=16)
 def _decimator_design(rate_hz, analysis_rate_hz):
     # Loose on purpose: the correlation only uses the band up to BAND_FRACTION of the analysis
-    # Nyquist; aliases may fall in the transition band above it.
+    # Nyquist; aliases may fall in the transition band above it. A multistage plan when it saves
+    # work (48 kHz -> 4 kHz: 48 -> 16 -> 4 kHz, about 40 % fewer multiply-adds).
     spec = Spec(passband_fraction=BAND_FRACTION, ripple_db=0.5, attenuation_db=60.0,
-                allow_transition_aliasing=True, arithmetic="float32")
-    return design(spec, rate_hz, analysis_rate_hz)
+                allow_transition_aliasing=True, arithmetic="float32", stages="auto")
+    return choose_plan(spec, rate_hz, analysis_rate_hz)
 
 
 def _blocks(source, block_frames):
@@ -298,7 +299,7 @@ def _robust_fit(times, offsets_ms, used, fa, confidence):
 def measure_drift(ref, ref_rate_hz, track, track_rate_hz, *, analysis_rate_hz=ANALYSIS_RATE_HZ,
                   window_s=4.0, windows=None, window_spacing_s=10.0, max_offset_ms=30000.0,
                   max_drift_ppm=500.0, min_peak_ratio_db=18.0, min_windows=8, min_share=0.1,
-                  confidence=0.95):
+                  confidence=0.95, mapper=map):
     """Estimate the start offset and clock drift of ``track`` against ``ref``.
 
     Parameters
@@ -324,6 +325,10 @@ def measure_drift(ref, ref_rate_hz, track, track_rate_hz, *, analysis_rate_hz=AN
         Refuse unless at least this many windows, and this share of them, are used.
     confidence : float, optional
         Confidence of the drift interval (Sen's interval for the Theil-Sen slope), default 0.95.
+    mapper : callable, optional
+        ``mapper(fn, sources, rates)`` runs the two decimations (reference, track), default the
+        built-in ``map`` (one after the other); a caller may pass a thread pool's map to read
+        and decimate both recordings at once.
 
     Returns
     -------
@@ -342,8 +347,9 @@ def measure_drift(ref, ref_rate_hz, track, track_rate_hz, *, analysis_rate_hz=AN
     _check_positive("window_s", window_s, 0.25, 600.0)
     _check_positive("max_offset_ms", max_offset_ms, 0.0, 3.6e6)
     _check_positive("confidence", confidence, 0.5, 0.999)
-    ref_d, ref_frames = decimated_mono(ref, ref_rate_hz, fa)
-    trk_d, track_frames = decimated_mono(track, track_rate_hz, fa)
+    (ref_d, ref_frames), (trk_d, track_frames) = mapper(
+        lambda source, rate: decimated_mono(source, rate, fa), (ref, track),
+        (ref_rate_hz, track_rate_hz))
     w = int(round(window_s * fa))
     if ref_d.size < 2 * w or trk_d.size < w:
         raise ParameterError(

@@ -367,6 +367,13 @@ class LoudnessMeter:
         else:
             self._pending = data
 
+    def short_term_lufs(self):
+        """Short-term (3 s) loudness of every window so far, hop 100 ms (EBU Tech 3341):
+        value i covers the 30 steps from ``i / 10`` s, so it ends at ``(i + 30) / 10`` s."""
+        steps = np.array(self._steps, dtype=np.float64)
+        return _window_loudness(steps, self._step_edge(np.arange(steps.size + 1)),
+                                _SHORT_TERM_STEPS)
+
     def result(self):
         """Return the :class:`LoudnessResult` of all blocks so far (the meter keeps running)."""
         steps = np.array(self._steps, dtype=np.float64)

@@ -33,6 +33,8 @@ __all__ = ["PolyphaseConverter", "ArbitraryConverter", "CascadeConverter", "make
 
 _CHUNK_FRAMES = 1 << 17   # input frames per product in the exact converter
 _MAX_DENOMINATOR = 1 << 40  # arbitrary path: position denominator, keeps block offsets in int64
+_COEF_ELEMENTS = 1 << 18    # arbitrary path: interpolated coefficients per chunk (outputs x width)
+_MIN_STRETCH = 64           # arbitrary path: read windows in place when stretches are this long
 
 
 def output_length(frames, up, down):
@@ -275,6 +277,8 @@ class ArbitraryConverter(_Streaming):
         self._i = i[used[0]:used[-1] + 1]
         self._table = table.astype(dtype)
         self._table_asc = np.ascontiguousarray(self._table[:, ::-1])
+        # the step from each phase to the next, so an interpolated filter is one product-add
+        self._step_asc = np.ascontiguousarray(np.diff(self._table_asc, axis=0))
         self.taps_per_phase = self._table.shape[1]
         self.numtaps = h.size
         self._reach_back = int(self._i[-1])   # inputs down to a - i_max
@@ -314,21 +318,37 @@ class ArbitraryConverter(_Streaming):
         return max(0, count)
 
     def _run(self, count):
+        """Outputs n .. n+count-1: per output, the interpolated filter (its phase's row plus
+        the fraction times the step to the next phase) against its input window.
+
+        Near a ratio of 1 (a drift correction) consecutive outputs read consecutive inputs for
+        thousands of outputs at a time; those stretches are read in place as slices of the
+        sliding view (no gathered copy of the windows), which is most of the work saved. Other
+        ratios gather the windows by integer indexing.
+        """
         C = self.channels
         out = np.empty((C, count), dtype=self.dtype)
         width = self._table.shape[1]
-        step = max(1, min(1 << 18, (1 << 18) // (width * C)))
+        step = max(1, _COEF_ELEMENTS // width)
         # windows as rows of a sliding view, inputs ascending from a - i_max; the table is
         # stored in that order (column j holds offset i_max - j), so no per-output reversal
         table = self._table_asc
         windows = np.lib.stride_tricks.sliding_window_view(self._buf, width, axis=1)
+        base = self._buf_start + self._reach_back
         for s in range(0, count, step):
             n = min(step, count - s)
             a, p, eta = self._positions(self._n + s, n)
-            coef = table[p] * (1 - eta)[:, None].astype(self.dtype) \
-                + table[p + 1] * eta[:, None].astype(self.dtype)
-            win = windows[:, a - self._buf_start - self._reach_back]   # C x n x width
-            out[:, s:s + n] = np.einsum("cnk,nk->cn", win, coef, optimize=False)
+            coef = table[p]
+            coef += self._step_asc[p] * eta[:, None].astype(self.dtype)
+            idx = a - base
+            breaks = np.flatnonzero(idx[1:] - idx[:-1] != 1) + 1
+            if breaks.size * _MIN_STRETCH < n:
+                for b0, b1 in zip(np.r_[0, breaks], np.r_[breaks, n]):
+                    view = windows[:, idx[b0]:idx[b0] + (b1 - b0)]      # C x stretch x width
+                    out[:, s + b0:s + b1] = np.einsum("cnk,nk->cn", view, coef[b0:b1],
+                                                      optimize=False)
+            else:
+                out[:, s:s + n] = np.einsum("cnk,nk->cn", windows[:, idx], coef, optimize=False)
         self._n += count
         return out.T
 

@@ -21,7 +21,7 @@ from .numbers import finite_number
 from .rates import Route
 
 __all__ = ["Spec", "Mask", "PHASES", "METHODS", "ARITHMETICS", "STAGE_CHOICES", "PRESETS",
-           "preset", "spec_from_dict", "FLOAT32_LIMIT_DB"]
+           "DEFAULT_PRESET", "preset", "preset_bits", "spec_from_dict", "FLOAT32_LIMIT_DB"]
 
 PHASES = ("linear", "minimum")
 METHODS = ("auto", "kaiser", "equiripple", "least-squares")
@@ -148,12 +148,15 @@ def _check_number(name, value, low, high, unit):
 
 # Presets are named after the work they serve. Limits are common practice for the trade
 # (passband ripple <= 0.01 dB for music, 0.001 dB for archives; rejection >= 100 dB for 16-bit
-# delivery, >= 140 dB for 24-bit masters), not taken from a standard.
+# delivery, >= 140 dB for 24-bit masters), not taken from a standard. A preset that names a word
+# length (``bits``, one of webapp.dsp.dither.WORD_LENGTHS) sets the delivery's word length when
+# the user does not choose one; the others leave it like the source.
 PRESETS = {
     "spoken_word_delivery": dict(
         label="Spoken word delivery",
         about="Interviews and episodes delivered at 16 bit: 100 dB rejection, 0.05 dB ripple.",
-        spec=Spec(passband_fraction=0.9, ripple_db=0.05, attenuation_db=100.0, arithmetic="float32")),
+        spec=Spec(passband_fraction=0.9, ripple_db=0.05, attenuation_db=100.0, arithmetic="float32"),
+        bits="16"),
     "music_delivery": dict(
         label="Music delivery",
         about="Music beds and mixes: flat to 0.9 of the lower Nyquist, 0.01 dB, 120 dB.",
@@ -161,7 +164,8 @@ PRESETS = {
     "archival_master": dict(
         label="Archival master",
         about="Masters kept at 24 bit: 0.001 dB ripple, 150 dB rejection, float64.",
-        spec=Spec(passband_fraction=0.91, ripple_db=0.001, attenuation_db=150.0, arithmetic="float64")),
+        spec=Spec(passband_fraction=0.91, ripple_db=0.001, attenuation_db=150.0, arithmetic="float64"),
+        bits="24"),
     "live_voice_pipeline": dict(
         label="Live voice pipeline",
         about="Speech services that need low delay: minimum phase, 90 dB.",
@@ -174,7 +178,9 @@ PRESETS = {
                   allow_transition_aliasing=True, arithmetic="float32")),
 }
 
-DEFAULT_PRESET = "music_delivery"
+#: The preset the page and the command line start on: the demo is an interview, and spoken word
+#: is the work most users bring.
+DEFAULT_PRESET = "spoken_word_delivery"
 
 
 def preset(name):
@@ -182,6 +188,12 @@ def preset(name):
     if name not in PRESETS:
         raise ParameterError(f"preset must be one of {', '.join(PRESETS)}, got {name!r}", "preset")
     return PRESETS[name]["spec"]
+
+
+def preset_bits(name):
+    """The word length preset ``name`` states ("16", "24"), or None (like the source)."""
+    preset(name)
+    return PRESETS[name].get("bits")
 
 
 def spec_from_dict(data, *, base=None):

@@ -249,15 +249,17 @@ def plan_options(spec, fs_in, fs_out, *, max_stages=3, candidates=MAX_CANDIDATES
     return single, plans
 
 
-def choose_plan(spec, fs_in, fs_out, *, single=None):
+def choose_plan(spec, fs_in, fs_out, *, single=None, plans=None):
     """The Plan a conversion runs: the single stage, or with ``spec.stages == "auto"`` the
     cheapest verified multistage plan when it saves at least 20 % of the multiply-adds.
-    ``single`` may pass the single-stage design already made (a cache)."""
+    ``single`` may pass the single-stage design already made (a cache), ``plans`` the
+    multistage plans :func:`plan_options` already gave for it."""
     if single is None:
         single = design(spec, fs_in, fs_out)
     if spec.stages != "auto":
         return Plan.single(single)
-    single, plans = plan_options(spec, fs_in, fs_out, single=single)
+    if plans is None:
+        single, plans = plan_options(spec, fs_in, fs_out, single=single)
     good = [p for p in plans if p.meets_mask]
     if good and good[0].macs_per_output_sample < 0.8 * single.macs_per_output_sample:
         return good[0]

@@ -69,6 +69,7 @@ class State:
         self.background = ThreadPoolExecutor(max_workers=1,
                                              thread_name_prefix="rateferry-analysis")
         self.demo_id = None
+        self.demo_pair = None
         from .streams import StreamSlots
         self.streams = StreamSlots(app.config["SSE_MAX_STREAMS"])
 
@@ -155,12 +156,14 @@ def create_app(test_config=None, *, instance_path=None):
     errors.register_error_handlers(app)
     security.init_security(app)
 
-    from . import api, batches, page
+    from . import api, batches, drift_api, page
     app.register_blueprint(api.bp)
     app.register_blueprint(batches.bp)
+    app.register_blueprint(drift_api.bp)
     app.register_blueprint(page.bp)
 
     if app.config["LOAD_DEMO"]:
-        from .library import register_demo
+        from .library import register_demo, register_demo_pair
         state.demo_id = register_demo(state.store, app.config["DEMO_MEDIA"])
+        state.demo_pair = register_demo_pair(state.store, app.config["DEMO_MEDIA"])
     return app

@@ -13,13 +13,14 @@ from webapp.jsontools import jsonable
 from webapp.dsp import spec as spec_module
 from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
 from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
+from webapp.dsp.timebase import TimeBase, timebase_design
 from webapp.store import ACTIVE_STATUSES, FINAL_STATUSES, new_id
 from webapp.delivery import CHANNEL_LAYOUTS, DITHERS, MONO_LAWS, MP3_MODES, Delivery
 from webapp.profiles import PROFILES
 from webapp import jobs
 
 from webapp import figures, listening
-from webapp.designs import PLAYBACK_PRESET, design_key
+from webapp.designs import PLAYBACK_PRESET, design_estimate, design_key
 from webapp.recipe import load_recipe, recipe_file_name
 from .db import get_db, state
 from .errors import ApiError
@@ -44,6 +45,8 @@ URLS = {
     "designs": "/api/designs",
     "design": "/api/designs/{id}",
     "design_plans": "/api/designs/{id}/plans",
+    "design_estimate": "/api/estimates",
+    "recording_overview": "/api/recordings/{id}/overview",
     "audits": "/api/audits",
     "spectra": "/api/spectra",
     "conversions": "/api/conversions",
@@ -58,6 +61,10 @@ URLS = {
     "recipes": "/api/recipes",
     "renditions": "/api/renditions",
     "rendition_audio": "/api/renditions/{id}/{kind}",
+    "drift": "/api/drift",
+    "drift_listen": "/api/drift/listen",
+    "drift_listen_audio": "/api/drift/listen/{id}/{kind}",
+    "drift_conversions": "/api/drift/conversions",
     "clear": "/api/maintenance/clear",
     "batches": "/api/batches",
     "batch": "/api/batches/{id}",
@@ -68,6 +75,9 @@ URLS = {
 
 COMMON_RATES_HZ = (8000, 11025, 16000, 22050, 24000, 32000, 44100, 48000, 88200, 96000,
                    176400, 192000)
+#: The page's first target: the first of these that differs from the recording's rate.
+DEFAULT_TARGETS_HZ = (48000, 44100)
+DEFAULT_FORMAT = "flac"
 #: Output format names the page offers -> file extension.
 OUTPUT_FORMAT_EXTENSIONS = {"flac": ".flac", "wav": ".wav", "aiff": ".aiff", "w64": ".w64",
                             "rf64": ".rf64", "ogg": ".ogg", "opus": ".opus", "mp3": ".mp3"}
@@ -120,7 +130,8 @@ def _openapi_text():
 
 @bp.get("/options")
 def options():
-    presets = {name: dict(label=p["label"], about=p["about"], spec=p["spec"].to_dict())
+    presets = {name: dict(label=p["label"], about=p["about"], spec=p["spec"].to_dict(),
+                          bits=p.get("bits"))
                for name, p in spec_module.PRESETS.items()}
     fields = dict(
         phase=dict(choices=list(spec_module.PHASES)),
@@ -141,6 +152,11 @@ def options():
         common_rates_hz=list(COMMON_RATES_HZ),
         rate_limits_hz=dict(min=MIN_RATE_HZ, max=MAX_RATE_HZ),
         word_lengths=list(media.WORD_LENGTHS), dithers=list(DITHERS),
+        default_delivery=Delivery().to_dict(), default_format=DEFAULT_FORMAT,
+        default_targets_hz=list(DEFAULT_TARGETS_HZ),
+        blind_trial_counts=list(listening.BLIND_TRIAL_COUNTS),
+        blind_trial_default=listening.BLIND_TRIAL_DEFAULT,
+        palette=dict(figures.PALETTE),
         output_formats=list(OUTPUT_FORMAT_EXTENSIONS),
         upload_extensions=sorted(UPLOAD_EXTENSIONS),
         max_upload_bytes=current_app.config["MAX_CONTENT_LENGTH"],
@@ -148,7 +164,7 @@ def options():
         rendition_min_s=listening.RENDITION_MIN_S,
         playback_preset=PLAYBACK_PRESET,
         profiles={name: p.to_dict() for name, p in PROFILES.items()},
-        delivery_defaults=Delivery().to_dict(), channel_layouts=list(CHANNEL_LAYOUTS),
+        channel_layouts=list(CHANNEL_LAYOUTS),
         mono_laws=list(MONO_LAWS), mp3_modes=list(MP3_MODES),
     ))
 
@@ -239,6 +255,20 @@ def recording_audio(recording_id):
                      conditional=True, download_name=rec["name"])
 
 
+@bp.get("/recordings/<recording_id>/overview")
+def recording_overview(recording_id):
+    from webapp.overview import DEFAULT_COLUMNS, overview
+    rec = recording_or_404(recording_id)
+    raw = request.args.get("columns", str(DEFAULT_COLUMNS))
+    try:
+        columns = int(raw)
+    except ValueError:
+        raise ParameterError(f"columns must be a whole number, got {raw!r}", "columns") from None
+    body, cached = state().cache.memo("overview", (rec["id"], columns),
+                                      lambda: jsonable(overview(rec["path"], columns=columns)))
+    return _json(dict(body, recording_id=rec["id"], cached=cached), clean=True)
+
+
 @bp.delete("/recordings/<recording_id>")
 def delete_recording(recording_id):
     rec = recording_or_404(recording_id)
@@ -293,6 +323,17 @@ def _bool(data, name, default):
     if not isinstance(value, bool):
         raise ParameterError(f"{name} must be true or false, got {value!r}", name)
     return value
+
+
+@bp.post("/estimates")
+def estimate_design():
+    """What a design would cost, from the order formulas, before designing it."""
+    data = json_body()
+    fs_in = None
+    if data.get("recording_id") is not None:
+        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
+    spec, fs_in, fs_out, _ = spec_input(data, fs_in=fs_in)
+    return _json(design_estimate(spec, fs_in, fs_out))
 
 
 @bp.post("/designs")
@@ -372,12 +413,19 @@ def create_spectra():
 # ---------------------------------------------------------------------------------------------
 # conversions
 
+def _sheet_name(download_name):
+    return os.path.splitext(download_name)[0] + "_sheet.html"
+
+
 def _public_conversion(conv, *, figures=True):
     out = {k: conv[k] for k in ("id", "recording_id", "design_id", "status", "cancel_requested",
                                 "fs_in", "fs_out", "format", "spec", "delivery", "progress",
                                 "error", "download_name", "created", "started", "finished")}
     if figures:
         out["figures"] = conv["figures"]
+    # the names the downloads get (the recipe's as the CLI and the sheet name it)
+    out["recipe_name"] = recipe_file_name(conv["download_name"])
+    out["sheet_name"] = _sheet_name(conv["download_name"])
     cid = conv["id"]
     out["urls"] = dict(self=_url("conversion", id=cid), events=_url("conversion_events", id=cid),
                        cancel=_url("conversion_cancel", id=cid))
@@ -409,12 +457,15 @@ def _prepare_conversion(rec, spec, fs_in, fs_out, fmt, delivery, design_id=None)
     return cid, job, design_id
 
 
-def _queue_conversion(rec, cid, job, design_id, fmt, *, spec, delivery, recipe=None):
-    """Add the conversion to the store and queue it on the pool; returns its row."""
+def _queue_conversion(rec, cid, job, design_id, fmt, *, spec, delivery, recipe=None,
+                      stem=None):
+    """Add the conversion to the store and queue it on the pool; returns its row. Every
+    conversion endpoint (plain, recipe re-run, time base) queues through here; ``stem`` names
+    the download (default: the recording's name)."""
     conv = get_db().add_conversion(
         conversion_id=cid, recording_id=rec["id"], design_id=design_id, fs_in=job.fs_in,
         fs_out=job.fs_out, format=fmt, spec=spec.to_dict(), delivery=delivery.to_dict(),
-        output_path=job.target, download_name=job.download_name(_stem(rec["name"])),
+        output_path=job.target, download_name=job.download_name(stem or _stem(rec["name"])),
         frames_total=job.frames_total)
 
     def run(progress, cancel):
@@ -436,7 +487,9 @@ def _recipe_job(data, rec, target_for):
         raise ParameterError(f"recipe output {recipe.data['output']['name']!r} is not a format "
                              "the page writes", "recipe")
     fmt = next(k for k, v in OUTPUT_FORMAT_EXTENSIONS.items() if v == ext)
-    plan = state().cache.conversion_plan(recipe.spec, recipe.fs_in, recipe.fs_out)
+    plan = None     # a time base or a speed change is designed by the job model itself
+    if recipe.time_base is None and recipe.speed is None:
+        plan = state().cache.conversion_plan(recipe.spec, recipe.fs_in, recipe.fs_out)
     job = jobs.prepare_rerun(recipe, rec["path"], target_for(ext), plan=plan)
     return recipe, job, fmt
 
@@ -454,7 +507,7 @@ def create_conversion():
         design_id = _store_design(spec, job.fs_in, job.fs_out, job.plan.figures())
     else:
         spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
-        fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default="flac")
+        fmt = choice(data, "format", tuple(OUTPUT_FORMAT_EXTENSIONS), default=DEFAULT_FORMAT)
         delivery = Delivery.from_dict(data.get("delivery"))
         cid, job, design_id = _prepare_conversion(rec, spec, fs_in, fs_out, fmt, delivery,
                                                   design_id)
@@ -557,7 +610,9 @@ def _result_for(conv):
     rec = recording_or_404(conv["recording_id"])
     f = conv["figures"]
     spec = spec_module.Spec(**conv["spec"])
-    plan = st.cache.conversion_plan(spec, conv["fs_in"], conv["fs_out"])
+    time_base = TimeBase.from_dict(f["time_base"]) if f.get("time_base") else None
+    plan = (timebase_design(spec, time_base) if time_base is not None
+            else st.cache.conversion_plan(spec, conv["fs_in"], conv["fs_out"]))
     output_meters = {k: v for k, v in f["output"].items() if k != "clipped_samples"}
     return ConversionResult(
         source_path=rec["path"], output_path=conv["output_path"], fs_in=conv["fs_in"],
@@ -568,7 +623,8 @@ def _result_for(conv):
         gain_db=f["gain_db"], gain_reason=f["gain_reason"], source_meters=f["source"],
         output_meters=output_meters, clipped_samples=f["clipped_samples"], passes=f["passes"],
         source_sha256=f["source_sha256"], output_sha256=f["output_sha256"], version=f["version"],
-        channels_out=f.get("channels_out"), filter_applied=f.get("filter_applied", True),
+        time_base=time_base, channels_out=f.get("channels_out"),
+        filter_applied=f.get("filter_applied", True),
         delivery_report=f.get("delivery_report") or {})
 
 
@@ -609,8 +665,7 @@ def conversion_sheet(conversion_id):
     finally:
         if os.path.exists(tmp):
             os.unlink(tmp)
-    name = os.path.splitext(conv["download_name"])[0] + "_sheet.html"
-    return _attachment(body, name, "text/html")
+    return _attachment(body, _sheet_name(conv["download_name"]), "text/html")
 
 
 @bp.get("/conversions/<conversion_id>/recipe")

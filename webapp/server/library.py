@@ -8,11 +8,14 @@ from webapp import media
 from webapp.dsp.errors import RateferryError
 from webapp.pipeline import Meters
 
-__all__ = ["DEMO_NAME", "probe_figures", "measure", "register_demo", "find_demo_file"]
+__all__ = ["DEMO_NAME", "DEMO_PAIR", "probe_figures", "measure", "register_demo",
+           "register_demo_pair", "find_demo_file", "demo_files"]
 
 log = logging.getLogger(__name__)
 
 DEMO_NAME = "harbour_interview_44k1.flac"
+#: The time base demo: a reference and a track of one invented interview (two recorders).
+DEMO_PAIR = ("tidewater_call_16k.flac", "tidewater_guest_16k.flac")
 _DEMO_PATTERNS = ("*.flac", "*.wav")
 
 
@@ -45,30 +48,35 @@ def measure(path, info):
     return dict(meters.result(), analysis="done")
 
 
-def find_demo_file(folder):
-    """The demo recording in ``folder``: DEMO_NAME, else the first .flac/.wav; or None."""
+def demo_files(folder):
+    """Every demo recording in ``folder`` (.flac/.wav), DEMO_NAME first; [] without a folder."""
     if not folder or not os.path.isdir(folder):
-        return None
+        return []
+    found = sorted({p for pattern in _DEMO_PATTERNS
+                    for p in glob.glob(os.path.join(glob.escape(folder), pattern))})
     preferred = os.path.join(folder, DEMO_NAME)
-    if os.path.isfile(preferred):
-        return preferred
-    for pattern in _DEMO_PATTERNS:
-        found = sorted(glob.glob(os.path.join(glob.escape(folder), pattern)))
-        if found:
-            return found[0]
-    return None
+    return sorted(found, key=lambda p: (os.path.abspath(p) != os.path.abspath(preferred), p))
 
 
-def register_demo(store, folder):
-    """Register the demo recording in place (no copy); returns its id or None.
+def find_demo_file(folder):
+    """The main demo recording in ``folder``: DEMO_NAME, else the first .flac/.wav; or None."""
+    files = demo_files(folder)
+    return files[0] if files else None
 
-    A file registered before and unchanged since (size, modification time) keeps its id, so a
-    page reloaded after a restart still finds it.
-    """
-    path = find_demo_file(folder)
-    if path is None:
-        log.info("no demo recording in %s", folder)
+
+def register_demo_pair(store, folder):
+    """Register the time base demo pair in place; returns {reference_id, track_id} or None."""
+    paths = [os.path.join(folder or "", name) for name in DEMO_PAIR]
+    if not all(os.path.isfile(p) for p in paths):
+        log.info("no demo pair in %s", folder)
         return None
+    ids = [_register_one(store, p) for p in paths]
+    if None in ids:
+        return None
+    return dict(reference_id=ids[0], track_id=ids[1])
+
+
+def _register_one(store, path):
     with store.open() as db:
         known = db.find_demo(path)
         if known is not None:
@@ -82,3 +90,17 @@ def register_demo(store, folder):
         rec = db.add_recording(name=os.path.basename(path), path=path, owned=False, demo=True,
                                probe=probe_figures(info), meters=meters)
         return rec["id"]
+
+
+def register_demo(store, folder):
+    """Register every demo recording in place (no copy); returns the main one's id or None.
+
+    A file registered before and unchanged since (size, modification time) keeps its id, so a
+    page reloaded after a restart still finds it.
+    """
+    files = demo_files(folder)
+    if not files:
+        log.info("no demo recording in %s", folder)
+        return None
+    ids = [_register_one(store, path) for path in files]
+    return next((i for i in ids if i is not None), None)

@@ -18,7 +18,8 @@ def page_config():
     """What the page reads from ``<script id="rateferry-config" type="application/json">``."""
     from .api import URLS
     return dict(version=__version__, token=current_app.config["PAGE_TOKEN"],
-                demo_recording_id=state().demo_id, urls=dict(URLS),
+                demo_recording_id=state().demo_id, demo_pair=state().demo_pair,
+                urls=dict(URLS),
                 max_upload_bytes=current_app.config["MAX_CONTENT_LENGTH"],
                 excerpt_max_s=current_app.config["EXCERPT_MAX_S"])
 

@@ -31,7 +31,7 @@ def port_is_free(host, port):
 
 
 def serve(*, host="127.0.0.1", port=DEFAULT_PORT, open_browser=True, debug=False,
-          instance_path=None, threads=DEFAULT_THREADS):
+          instance_path=None, threads=DEFAULT_THREADS, announce=True):
     """Run the web app until interrupted; returns an exit code.
 
     Parameters
@@ -47,6 +47,8 @@ def serve(*, host="127.0.0.1", port=DEFAULT_PORT, open_browser=True, debug=False
         Flask's development server with debugging instead of waitress.
     instance_path : str, optional
         The data folder (default :func:`webapp.store.default_instance_path`).
+    announce : bool
+        Say where the page is on stderr (the command's ``--silent`` turns it off).
     """
     if host not in LOOPBACK_HOSTS:
         raise ParameterError(f"host must be one of {', '.join(LOOPBACK_HOSTS)} (the server is "
@@ -63,8 +65,9 @@ def serve(*, host="127.0.0.1", port=DEFAULT_PORT, open_browser=True, debug=False
     app.config["SERVER_PORT"] = port
     shown = f"[{bind}]" if ":" in bind else bind
     url = f"http://{shown}:{port}/"
-    sys.stderr.write(f"Rateferry {app.config['VERSION']} at {url} (data in {app.instance_path});"
-                     " Ctrl+C stops it\n")
+    if announce:
+        sys.stderr.write(f"Rateferry {app.config['VERSION']} at {url} (data in "
+                         f"{app.instance_path}); Ctrl+C stops it\n")
     if open_browser:
         threading.Timer(0.8, webbrowser.open, args=(url,)).start()
     try:

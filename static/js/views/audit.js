@@ -29,7 +29,7 @@ export function init(root, state) {
   const status = el('p', { class: 'summary', id: 'audit-status', 'aria-live': 'polite' });
   const stale = el('p', { class: 'stale', id: 'audit-stale', hidden: true });
   const verdict = el('div', { id: 'audit-verdict' });
-  const table = el('div', { id: 'audit-table' });
+  const table = el('div', { id: 'audit-table', class: 'table-scroll' });
   const artefacts = el('div', { class: 'plot', id: 'plot-audit-artefacts', role: 'img', 'aria-label': 'measured alias or image level against the input tone frequency' });
   const deviation = el('div', { class: 'plot', id: 'plot-audit-deviation', role: 'img', 'aria-label': 'measured passband deviation against frequency' });
   const impulse = el('div', { class: 'plot short', id: 'plot-audit-impulse', role: 'img', 'aria-label': 'measured output impulse in dB' });

@@ -16,7 +16,7 @@ export function init(root, state) {
   const pb = el('div', { class: 'plot', id: 'plot-passband', role: 'img', 'aria-label': 'passband close-up at ripple scale' });
   const imp = el('div', { class: 'plot', id: 'plot-impulse', role: 'img', 'aria-label': 'impulse response with pre-ringing marked' });
   const gd = el('div', { class: 'plot', id: 'plot-group-delay', role: 'img', 'aria-label': 'group delay' });
-  const plansBox = el('div', { id: 'plans' });
+  const plansBox = el('div', { id: 'plans', class: 'table-scroll' });
   const planPlot = el('div', { class: 'plot short', id: 'plot-plan-cost', role: 'img', 'aria-label': 'cost of each plan' });
 
   fill(root,

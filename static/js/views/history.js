@@ -1,8 +1,10 @@
-// History: earlier conversions from the store, newest first, with their downloads; a way to
-// reopen one (for listening or its sheet) and to clear old files.
+// History: earlier conversions from the store, newest first, with their downloads; opening one
+// brings back every setting that made it (current.js restore); the running one shows the same
+// progress as the status line (both read state.conversion); clearing old files.
 
 import * as api from '../api.js';
 import * as fmt from '../format.js';
+import { restore } from '../current.js';
 import { el, fill, showError, clearErrors, errorSlot } from '../ui.js';
 
 const FINAL = ['done', 'failed', 'cancelled'];
@@ -41,7 +43,10 @@ export function init(root, state) {
 
   function render(s) {
     const rec = s.recording;
-    const rows = (s.conversions || []).filter((c) => !filterBox.checked || !rec || c.recording_id === rec.id);
+    const live = s.conversion;
+    const rows = (s.conversions || [])
+      .map((c) => (live && live.id === c.id ? { ...c, ...live } : c))
+      .filter((c) => !filterBox.checked || !rec || c.recording_id === rec.id);
     if (!rows.length) {
       fill(list, el('li', { class: 'hint' }, filterBox.checked ? 'No conversions of this recording yet.' : 'No conversions yet.'));
       return;
@@ -56,20 +61,31 @@ export function init(root, state) {
           el('a', { href: u.sheet, download: '' }, 'sheet'),
           el('a', { href: u.recipe, download: '' }, 'recipe'));
       }
-      const pick = el('button', { type: 'button', class: 'link', onclick: () => state.set({ conversionPicked: { ...c, _picked: Date.now() } }) },
-        c.status === 'done' ? 'open' : 'show');
+      const pick = el('button', {
+        type: 'button', class: 'link', 'aria-label': `open ${c.download_name} with its settings`,
+        onclick: () => open(c.id),
+      }, 'open');
       linksBox.append(pick);
-      return el('li', { dataset: { id: c.id, status: c.status } },
+      return el('li', { dataset: { id: c.id, status: c.status, percent: String(Math.round((c.progress && c.progress.percent) || 0)) } },
         el('span', { class: 'name', title: c.download_name }, c.download_name),
         el('span', {}, `${fmt.rate(c.fs_in)} → ${fmt.rate(c.fs_out)} · ${String(c.format).toUpperCase()}${bits}`),
         el('span', { class: `status-${c.status}` },
-          c.status === 'running' && c.progress ? `running ${fmt.percent(c.progress.percent)}` : c.status,
+          c.status === 'running' && c.progress ? `running ${fmt.percent(c.progress.percent, 0)}` : c.status,
           ' · ', when(c.finished || c.created)),
         linksBox);
     }));
   }
 
-  state.on(['conversions', 'recording'], render);
+  async function open(id) {
+    clearErrors(root);
+    try {
+      await restore(state, await api.conversion(id));
+    } catch (err) {
+      showError(root, err);
+    }
+  }
+
+  state.on(['conversions', 'recording', 'conversion'], render);
   filterBox.addEventListener('change', () => render(state.get()));
   state.on('conversionsStale', reload);
   state.on('conversion', (s) => {

@@ -1,50 +1,41 @@
 // Listening: A/B of the original and the converted audio at the same playhead, a loop region,
-// blind trials (X is A or B at random) with a running score and its binomial p-value, and
-// difference listening with a gain control behind a hearing caution. Playback starts quiet.
+// and the excerpt they are cut from (state.excerpt, also set by a click on the overview).
+// Blind trials (listen/blind.js) and difference listening (listen/difference.js) share the
+// player through `ctx`. Playback starts quiet.
 
 import * as api from '../api.js';
 import * as fmt from '../format.js';
 import { Player, parseWav } from '../player.js';
+import { currentSpec } from '../current.js';
 import { el, fill, facts, showError, clearErrors, errorSlot, numberOf, typingTarget } from '../ui.js';
+import * as blindView from './listen/blind.js';
+import * as differenceView from './listen/difference.js';
 
 export const TAB = 'listen';
 const START_VOLUME_DB = -24;
-const MAX_BOOST_DB = 80;
 
-/** One-sided binomial tail: P(at least `correct` right of `trials` by guessing, p = 1/2). */
-export function binomialTail(correct, trials) {
-  if (trials <= 0) return 1;
-  // log-space terms keep large trial counts exact enough
-  const lnC = (n, k) => lgamma(n + 1) - lgamma(k + 1) - lgamma(n - k + 1);
-  let sum = 0;
-  for (let k = correct; k <= trials; k++) sum += Math.exp(lnC(trials, k) - trials * Math.LN2);
-  return Math.min(1, sum);
-}
-
-function lgamma(n) {
-  // n is a positive integer here: ln((n-1)!) summed directly
-  let s = 0;
-  for (let i = 2; i < n; i++) s += Math.log(i);
-  return s;
-}
-
-function randomAB() {
-  const a = new Uint8Array(1);
-  crypto.getRandomValues(a);
-  return a[0] & 1 ? 'A' : 'B';
-}
-
-function stableKey(obj) {
-  if (obj === null || typeof obj !== 'object') return JSON.stringify(obj);
-  return `{${Object.keys(obj).sort().map((k) => `${JSON.stringify(k)}:${stableKey(obj[k])}`).join(',')}}`;
+/** The hooks the listening parts share: the player, the rendition, refresh, events. */
+function makeContext() {
+  const hooks = { rendition: [], refresh: [], reset: [] };
+  return {
+    hooks,
+    player: () => null,
+    rendition: () => null,
+    refresh: () => {},
+    blindActive: () => false,
+    onRendition: (fn) => hooks.rendition.push(fn),
+    onRefresh: (fn) => hooks.refresh.push(fn),
+    onReset: (fn) => hooks.reset.push(fn),
+  };
 }
 
 export function init(root, state) {
   let player = null;
   let rendition = null;
-  let blind = null;          // {total, answers: [{x, answer}], x}
-  const pending = [];        // blind results waiting for a conversion of the same route
-  let boostAllowed = false;
+  let madeFor = null;          // what the design rendition was made from: {recording, fs_out, spec}
+  const ctx = makeContext();
+  ctx.player = () => player;
+  ctx.rendition = () => rendition;
 
   // ---------------------------------------------------------------- controls
 
@@ -55,42 +46,28 @@ export function init(root, state) {
   const length = el('input', { type: 'number', name: 'length_s', id: 'listen-length', min: 0.5, max: 60, step: 'any', value: 10 });
   const prepare = el('button', { type: 'button', id: 'listen-prepare' }, 'Prepare renditions');
   const prepStatus = el('p', { class: 'status', id: 'listen-status', 'aria-live': 'polite' });
+  const staleNote = el('p', { class: 'stale', id: 'listen-stale', hidden: true });
   const device = el('p', { class: 'hint', id: 'listen-device' });
   const cards = el('div', { class: 'listen-grid', id: 'renditions' });
 
   const playBtn = el('button', { type: 'button', class: 'play', id: 'listen-play', disabled: true, 'aria-keyshortcuts': 'Space' }, 'Play');
   const sel = {};
-  for (const [key, label, keyHint] of [['A', 'A', 'A'], ['B', 'B', 'B'], ['X', 'X', 'X'], ['D', 'Difference', 'D']]) {
+  for (const [key, label] of [['A', 'A'], ['B', 'B'], ['X', 'X'], ['D', 'Difference']]) {
     sel[key] = el('button', {
       type: 'button', id: `listen-${key.toLowerCase()}`, 'aria-pressed': key === 'A' ? 'true' : 'false',
-      disabled: true, 'aria-keyshortcuts': keyHint, title: `${label} (key ${keyHint})`,
+      disabled: true, 'aria-keyshortcuts': key, title: `${label} (key ${key})`,
     }, label);
   }
   const playhead = el('output', { class: 'playhead', id: 'playhead', 'aria-live': 'off', for: 'listen-play' }, '0.000 s');
   const nowPlaying = el('p', { class: 'hint', id: 'now-playing', 'aria-live': 'polite' });
   const seek = el('input', { type: 'range', id: 'listen-seek', min: 0, max: 1000, step: 1, value: 0, 'aria-label': 'playhead position', disabled: true });
-
   const loopBox = el('input', { type: 'checkbox', id: 'listen-loop', name: 'loop' });
   const loopStart = el('input', { type: 'number', id: 'listen-loop-start', name: 'loop_start_s', min: 0, step: 'any', value: 0, 'aria-label': 'loop start, s' });
   const loopEnd = el('input', { type: 'number', id: 'listen-loop-end', name: 'loop_end_s', min: 0, step: 'any', value: 10 });
-
   const volume = el('input', { type: 'range', id: 'listen-volume', min: -60, max: 0, step: 1, value: START_VOLUME_DB, 'aria-describedby': 'listen-volume-value' });
   const volumeValue = el('output', { id: 'listen-volume-value', for: 'listen-volume' }, fmt.db(START_VOLUME_DB, 0));
-
-  const diffGain = el('input', { type: 'range', id: 'listen-diff-gain', min: 0, max: 60, step: 1, value: 0, disabled: true, 'aria-describedby': 'listen-diff-value listen-caution' });
-  const diffValue = el('output', { id: 'listen-diff-value', for: 'listen-diff-gain' }, '+0 dB');
-  const caution = el('p', { class: 'caution', id: 'listen-caution', hidden: true });
-  const dialog = el('div', { class: 'dialog', id: 'boost-dialog', role: 'alertdialog', 'aria-labelledby': 'boost-dialog-h', hidden: true });
-
-  const trials = el('select', { id: 'blind-count', name: 'blind_trials' }, ...[6, 8, 10, 12, 16, 20].map((n) => el('option', { value: n, selected: n === 10 }, `${n} trials`)));
-  const blindStart = el('button', { type: 'button', id: 'blind-start', disabled: true }, 'Start a blind trial');
-  const blindStop = el('button', { type: 'button', id: 'blind-stop', class: 'secondary', hidden: true }, 'Finish now');
-  const answerA = el('button', { type: 'button', id: 'blind-answer-a', hidden: true }, 'X is A');
-  const answerB = el('button', { type: 'button', id: 'blind-answer-b', hidden: true }, 'X is B');
-  const blindTitle = el('p', { class: 'score', id: 'blind-trial', 'aria-live': 'polite' });
-  const score = el('p', { class: 'score', id: 'blind-score', 'aria-live': 'polite' });
-  const blindNote = el('p', { class: 'hint', id: 'blind-note', 'aria-live': 'polite' });
-  const trialList = el('ol', { class: 'trials', id: 'blind-list' });
+  const blindRoot = el('section', { class: 'blind', 'aria-labelledby': 'blind-h' });
+  const diffRoot = el('section', { class: 'blind', 'aria-labelledby': 'diff-h' });
 
   fill(root,
     el('div', { class: 'view-head' }, el('h2', { id: 'listen-h' }, 'Listening')),
@@ -108,7 +85,7 @@ export function init(root, state) {
         el('span', { class: 'with-unit' }, length, el('span', { class: 'unit' }, 's')),
         prepare),
       errorSlot('start_s'), errorSlot('length_s'), errorSlot('rate_hz'), errorSlot('conversion_id'),
-      prepStatus, device),
+      prepStatus, staleNote, device),
     cards,
     el('div', { class: 'transport' },
       playBtn,
@@ -126,19 +103,30 @@ export function init(root, state) {
           el('label', { for: 'listen-loop-end' }, 'to'),
           el('span', { class: 'with-unit' }, loopEnd, el('span', { class: 'unit' }, 's'))),
         errorSlot('loop'))),
-    el('section', { class: 'blind', 'aria-labelledby': 'blind-h' },
-      el('h3', { id: 'blind-h' }, 'Blind trial'),
-      el('p', { class: 'hint' }, 'A is the original, B the converted audio. In each trial X is A or B at random; listen to all three as often as you like (keys A, B, X) and say which one X is. The p-value is the chance of scoring at least this well by guessing.'),
-      el('div', { class: 'buttons' }, trials, blindStart, answerA, answerB, blindStop),
-      blindTitle, score, blindNote, trialList),
-    el('section', { class: 'blind', 'aria-labelledby': 'diff-h' },
-      el('h3', { id: 'diff-h' }, 'Difference listening'),
-      el('p', { class: 'hint' }, 'The difference is converted minus original, both level matched and time aligned: what the conversion changed. It is usually very quiet, so a boost is offered.'),
-      caution,
-      el('label', { for: 'listen-diff-gain' }, 'Boost of the difference'),
-      el('div', { class: 'with-unit' }, diffGain, diffValue),
-      dialog),
+    blindRoot,
+    diffRoot,
     errorSlot('*'));
+
+  blindView.init(blindRoot, state, ctx);
+  differenceView.init(diffRoot, state, ctx);
+
+  // ---------------------------------------------------------------- the excerpt (shared state)
+
+  function excerptFromInputs() {
+    const e = state.get('excerpt') || { start_s: 0, length_s: 10 };
+    const s = numberOf(start);
+    const l = numberOf(length);
+    state.set({ excerpt: { start_s: Number.isFinite(s) ? s : e.start_s, length_s: Number.isFinite(l) ? l : e.length_s } });
+  }
+  start.addEventListener('change', excerptFromInputs);
+  length.addEventListener('change', excerptFromInputs);
+  state.on('excerpt', (s) => {
+    const e = s.excerpt;
+    if (!e) return;
+    if (document.activeElement !== start) start.value = String(e.start_s);
+    if (document.activeElement !== length) length.value = String(e.length_s);
+    markStale(s);
+  });
 
   // ---------------------------------------------------------------- helpers
 
@@ -164,10 +152,25 @@ export function init(root, state) {
     conversionLabel.textContent = ok ? `the finished conversion (${c.download_name})` : 'the finished conversion (none yet)';
     if (ok && !rendition) fromConversion.checked = true;
     if (!ok && fromConversion.checked) fromDesign.checked = true;
-    if (rec && document.activeElement !== length) {
-      length.max = Math.min(60, rec.duration_s);
-      if (Number(length.value) > rec.duration_s) length.value = Math.max(0.5, Math.floor(rec.duration_s * 10) / 10);
+    if (rec && document.activeElement !== length) length.max = Math.min(60, rec.duration_s);
+  }
+
+  /** Renditions made from a design the controls no longer describe are marked. */
+  function markStale(s) {
+    let why = '';
+    if (rendition && madeFor && s.route) {
+      const spec = currentSpec(s);
+      if (madeFor.fs_out !== s.route.fs_out) why = `target ${fmt.rate(madeFor.fs_out)}`;
+      else if (JSON.stringify(madeFor.spec) !== JSON.stringify(spec)) why = 'another mask';
     }
+    const e = s.excerpt;
+    if (rendition && e && (Math.abs(rendition.start_s - e.start_s) > 1e-3 || Math.abs(rendition.length_s - e.length_s) > 1e-3)) {
+      why = why ? `${why} and another excerpt` : 'another excerpt';
+    }
+    staleNote.hidden = !why;
+    staleNote.textContent = why ? `These renditions were prepared for ${why}; press “Prepare renditions” to hear the current settings.` : '';
+    for (const card of cards.querySelectorAll('.rendition')) card.classList.toggle('stale', !!why);
+    root.dataset.renditionsStale = String(!!why);
   }
 
   function rateLine(kind, r, wav) {
@@ -190,6 +193,7 @@ export function init(root, state) {
       el('h4', {}, title), ...lines.map((t) => el('p', { class: 'hint' }, t)), facts(figs, 'facts compact'));
     const [oa, ob] = rateLine('original', r.original, wavs.A);
     const [ca, cb] = rateLine('converted', r.converted, wavs.B);
+    const align = r.alignment.text ? `${r.alignment.text.charAt(0).toUpperCase()}${r.alignment.text.slice(1).replace(/\.$/, '')}.` : '';
     fill(cards,
       card('A · original', 'original', [
         ['Playback rate', fmt.rate(wavs.A.rate)],
@@ -205,22 +209,22 @@ export function init(root, state) {
         ['Level match', lm.method === 'none' ? 'none (silent excerpt)' : `${lm.method === 'integrated_loudness' ? 'integrated loudness' : 'RMS'} to ${fmt.db(lm.target, 1, unit)}`],
         ['Time alignment', `${fmt.ms(r.alignment.shift_ms, 3)} shift`],
         ['Difference', `${fmt.db(r.difference.level_db)} re original, peak ${fmt.dbfs(r.difference.peak_dbfs)}`],
-      ], [r.alignment.text ? r.alignment.text[0].toUpperCase() + r.alignment.text.slice(1) + '.' : '']));
+      ], [align]));
   }
 
   function refresh() {
     const p = player;
     const loaded = p && p.loaded;
+    const blind = ctx.blindActive();
     playBtn.disabled = !loaded;
     seek.disabled = !loaded;
     playBtn.textContent = p && p.playing ? 'Pause' : 'Play';
     playBtn.setAttribute('aria-label', p && p.playing ? 'Pause (space)' : 'Play (space)');
     sel.A.disabled = sel.B.disabled = !loaded;
     sel.X.disabled = !loaded || !blind;
-    sel.D.disabled = !loaded || !!blind || !(p && p.buffers.D);
+    sel.D.disabled = !loaded || blind || !(p && p.buffers.D);
     for (const [key, b] of Object.entries(sel)) b.setAttribute('aria-pressed', String(!!p && p.selected === key));
-    blindStart.disabled = !loaded || !!blind;
-    diffGain.disabled = !loaded || !(p && p.buffers.D);
+    for (const fn of ctx.hooks.refresh) fn(p);
     if (p) {
       const what = { A: 'A, the original', B: 'B, the converted audio', X: 'X (A or B, hidden)', D: 'the difference' }[p.selected];
       nowPlaying.textContent = `${p.playing ? 'Playing' : 'Paused on'} ${what}${p.selected === 'D' ? `, boosted ${fmt.db(p.diffGainDb, 0)}` : ''}.`;
@@ -232,6 +236,7 @@ export function init(root, state) {
     }
     tick();
   }
+  ctx.refresh = refresh;
 
   let raf = 0;
   function tick() {
@@ -250,14 +255,17 @@ export function init(root, state) {
   let controller = null;
   async function prepareRenditions() {
     clearErrors(root);
+    excerptFromInputs();
     const s = state.get();
     const rec = s.recording;
     if (!rec) return;
     const p = ensurePlayer();
     if (controller) controller.abort();
     controller = new AbortController();
-    const body = { start_s: numberOf(start) ?? 0, length_s: numberOf(length) ?? 10, rate_hz: p.deviceRate };
-    if (fromConversion.checked && usable(s.conversion, rec)) {
+    const e = s.excerpt || { start_s: 0, length_s: 10 };
+    const body = { start_s: e.start_s, length_s: e.length_s, rate_hz: p.deviceRate };
+    const fromFile = fromConversion.checked && usable(s.conversion, rec);
+    if (fromFile) {
       body.conversion_id = s.conversion.id;
     } else if (s.route) {
       Object.assign(body, { recording_id: rec.id, fs_out: s.route.fs_out, preset: s.route.preset, spec: s.route.spec });
@@ -270,17 +278,18 @@ export function init(root, state) {
       const wavs = { A: parseWav(a), B: parseWav(b), D: parseWav(d) };
       if (!wavs.A || !wavs.B) throw new Error('the renditions are not WAV files this page can read');
       rendition = r;
-      rendition.key = r.conversion_id ? null : stableKey({ recording_id: rec.id, fs_out: s.design && s.design.fs_out, spec: s.design && s.design.spec });
-      if (blind) endBlind(false);
+      rendition.key = r.conversion_id ? null : blindView.stableKey({ recording_id: rec.id, fs_out: s.design && s.design.fs_out, spec: s.design && s.design.spec });
+      madeFor = fromFile ? null : { fs_out: s.route.fs_out, spec: currentSpec(s) };
       p.load(wavs);
       p.select('A');
       renderCards(wavs);
       loopStart.value = '0';
       loopEnd.value = p.duration.toFixed(3);
       loopStart.max = loopEnd.max = p.duration.toFixed(3);
-      setupDifference();
+      for (const fn of ctx.hooks.rendition) fn(rendition, p);
       prepStatus.textContent = `Ready: ${fmt.seconds(r.length_s, 2)} from ${fmt.seconds(r.start_s, 3)}${r.conversion_id ? ' of the converted file' : ', converted with the current design'}. Press space to play.`;
       root.dataset.rendition = r.id;
+      markStale(state.get());
     } catch (err) {
       if (err && err.name === 'AbortError') return;
       prepStatus.textContent = '';
@@ -291,65 +300,12 @@ export function init(root, state) {
     }
   }
 
-  function setupDifference() {
-    const d = rendition.difference;
-    const max = Math.max(0, Math.min(MAX_BOOST_DB, Math.floor(d.max_boost_db ?? 0)));
-    diffGain.max = String(max);
-    diffGain.value = '0';
-    diffValue.textContent = '+0 dB';
-    player.setDiffGainDb(0);
-    boostAllowed = false;
-    dialog.hidden = true;
-    caution.hidden = false;
-    const text = d.caution_text || 'Boosting the difference also boosts any sudden loud part; keep the volume low.';
-    caution.replaceChildren(el('strong', {}, 'Hearing caution. '), text.replace(/^Hearing caution:\s*/i, ''),
-      ` A boost of up to ${fmt.db(max, 0)} brings its peak to full scale; the page never lets the boosted difference out above −6 dBFS.`);
-  }
-
-  function askForBoost(requested) {
-    fill(dialog,
-      el('h4', { id: 'boost-dialog-h' }, 'Before boosting the difference'),
-      el('p', {}, rendition && rendition.difference.caution_text ? rendition.difference.caution_text : 'Boosting the difference also boosts any sudden loud part.'),
-      el('p', {}, `You asked for ${fmt.db(requested, 0)}. Turn your system volume down first; raise it slowly once the difference plays.`),
-      el('div', { class: 'buttons' },
-        el('button', {
-          type: 'button', id: 'boost-allow',
-          onclick: () => {
-            boostAllowed = true;
-            dialog.hidden = true;
-            diffGain.value = String(requested);
-            applyBoost();
-            diffGain.focus();
-          },
-        }, 'I have turned it down: allow the boost'),
-        el('button', { type: 'button', class: 'secondary', id: 'boost-cancel', onclick: () => { dialog.hidden = true; diffGain.focus(); } }, 'Keep it at +0 dB')));
-    dialog.hidden = false;
-    dialog.querySelector('#boost-allow').focus();
-  }
-
-  function applyBoost() {
-    const v = Number(diffGain.value);
-    diffValue.textContent = `+${v} dB`;
-    if (player) player.setDiffGainDb(v);
-    refresh();
-  }
-
-  diffGain.addEventListener('input', () => {
-    const v = Number(diffGain.value);
-    if (v > 0 && !boostAllowed) {
-      diffGain.value = '0';
-      askForBoost(v);
-      return;
-    }
-    applyBoost();
-  });
-
   // ---------------------------------------------------------------- transport
 
   function choose(key) {
     if (!player || !player.loaded) return;
-    if (key === 'X' && !blind) return;
-    if (key === 'D' && (blind || !player.buffers.D)) return;
+    if (key === 'X' && !ctx.blindActive()) return;
+    if (key === 'D' && (ctx.blindActive() || !player.buffers.D)) return;
     player.select(key);
   }
 
@@ -391,103 +347,10 @@ export function init(root, state) {
     if ((e.key === ' ' || e.code === 'Space') && player && player.loaded && !typingTarget(e.target)) e.preventDefault();
   });
 
-  // ---------------------------------------------------------------- blind trials
-
-  function nextX() {
-    blind.x = randomAB();
-    player.setX(blind.x);
-  }
-
-  function showScore() {
-    const n = blind ? blind.answers.length : 0;
-    const right = blind ? blind.answers.filter((a) => a.x === a.answer).length : 0;
-    const p = binomialTail(right, n);
-    score.textContent = n ? `${right} of ${n} right · p = ${fmt.pvalue(p)}` : 'No answers yet';
-    score.dataset.correct = String(right);
-    score.dataset.answered = String(n);
-    score.dataset.pValue = String(p);
-    return { n, right, p };
-  }
-
-  function startBlind() {
-    if (!player || !player.loaded) return;
-    blind = { total: Number(trials.value), answers: [], x: null };
-    nextX();
-    trialList.replaceChildren();
-    blindNote.textContent = '';
-    answerA.hidden = answerB.hidden = blindStop.hidden = false;
-    blindTitle.textContent = `Trial 1 of ${blind.total}: is X A or B?`;
-    showScore();
-    if (player.selected === 'D') player.select('A');
-    refresh();
-  }
-
-  function answer(choice) {
-    if (!blind) return;
-    const item = { x: blind.x, answer: choice };
-    blind.answers.push(item);
-    const i = blind.answers.length;
-    trialList.append(el('li', {}, `X was ${item.x}; you said ${item.answer}: ${item.x === item.answer ? 'right' : 'wrong'}`));
-    showScore();
-    if (i >= blind.total) {
-      endBlind(true);
-      return;
-    }
-    nextX();
-    blindTitle.textContent = `Trial ${i + 1} of ${blind.total}: is X A or B?`;
-  }
-
-  async function endBlind(save) {
-    const done = blind;
-    blind = null;
-    answerA.hidden = answerB.hidden = blindStop.hidden = true;
-    if (player && player.selected === 'X') player.select('A');
-    refresh();
-    if (!done || !save || !done.answers.length) {
-      blindTitle.textContent = done ? 'Blind trial stopped.' : '';
-      return;
-    }
-    const right = done.answers.filter((a) => a.x === a.answer).length;
-    const result = { trials: done.answers.length, correct: right, answers: done.answers };
-    blindTitle.textContent = `Finished: ${right} of ${result.trials} right, p = ${fmt.pvalue(binomialTail(right, result.trials))}.`;
-    if (rendition && rendition.conversion_id) {
-      await post(rendition.conversion_id, result);
-    } else {
-      pending.push({ key: rendition && rendition.key, result });
-      blindNote.textContent = 'Kept on this page: the results go to the design sheet of the next conversion of this same route and mask.';
-    }
-  }
-
-  async function post(conversionId, result) {
-    try {
-      const saved = await api.postBlindTrials(conversionId, result);
-      blindNote.textContent = `Saved with the conversion for its design sheet (p = ${fmt.pvalue(saved.p_value)} as the server computes it).`;
-      blindNote.dataset.saved = saved.id;
-    } catch (err) {
-      showError(root, err);
-    }
-  }
-
-  blindStart.addEventListener('click', startBlind);
-  blindStop.addEventListener('click', () => endBlind(true));
-  answerA.addEventListener('click', () => answer('A'));
-  answerB.addEventListener('click', () => answer('B'));
-
   // ---------------------------------------------------------------- state
 
-  state.on(['conversion', 'recording'], (s, keys) => {
-    refreshSource();
-    const c = s.conversion;
-    if (keys.includes('conversion') && c && c.status === 'done' && pending.length) {
-      const key = stableKey({ recording_id: c.recording_id, fs_out: c.fs_out, spec: c.spec });
-      for (let i = pending.length - 1; i >= 0; i--) {
-        if (pending[i].key === key) {
-          const [item] = pending.splice(i, 1);
-          post(c.id, item.result);
-        }
-      }
-    }
-  });
+  state.on(['conversion', 'recording'], refreshSource);
+  state.on(['route', 'options'], markStale);
   let recordingId = null;
   state.on('recording', (s) => {
     const id = s.recording ? s.recording.id : null;
@@ -495,9 +358,11 @@ export function init(root, state) {
     recordingId = id;
     if (player) player.stop();
     rendition = null;
-    if (blind) endBlind(false);
+    madeFor = null;
+    for (const fn of ctx.hooks.reset) fn();
     cards.replaceChildren();
-    prepStatus.textContent = 'Choose an excerpt and press “Prepare renditions” to listen.';
+    markStale(s);
+    prepStatus.textContent = 'Choose an excerpt (or click the overview) and press “Prepare renditions” to listen.';
     if (player) player.load({});
     refresh();
   });

@@ -1,11 +1,10 @@
-// Route and mask: the target rate, a preset by use, every spec field; a debounced live
-// redesign on each edit; the verdict and the cost of the design.
+// Route and mask: the target rate, a preset by use (its word length too, when it states one),
+// every spec field. Edits go to the state; redesign.js designs, verdict.js shows the verdict.
 
-import * as api from '../api.js';
 import * as fmt from '../format.js';
-import { el, fill, facts, showError, clearErrors, errorSlot, debounce, numberOf } from '../ui.js';
+import { el, fill, showError, clearErrors, errorSlot, numberOf } from '../ui.js';
 
-const CHOICE_LABELS = {
+export const CHOICE_LABELS = {
   phase: { linear: 'linear', minimum: 'minimum' },
   method: {
     auto: 'automatic', kaiser: 'Kaiser window', equiripple: 'equiripple (Parks-McClellan)',
@@ -77,8 +76,6 @@ export function init(root, state) {
   }
   const aliasBox = el('input', { type: 'checkbox', name: 'allow_transition_aliasing', id: id('allow_transition_aliasing') });
 
-  const verdict = el('div', { class: 'verdict', id: 'verdict', role: 'status', 'aria-live': 'polite' });
-  const cost = el('div', { class: 'figures', id: 'design-cost' });
 
   fill(root,
     el('h2', { id: 'route-h' }, 'Route and mask'),
@@ -105,10 +102,6 @@ export function init(root, state) {
         el('div', { class: 'field' }, el('label', { for: id('stages') }, 'Stages'), selects.stages, errorSlot('stages'))),
       el('p', { class: 'hint' }, 'Linear phase: constant delay (removed by the converter), rings before transients. Minimum phase: no pre-ringing, delay varies with frequency. float32 is faster and good to about 125 dB of rejection.'),
       resetBtn, errorSlot('spec')),
-    el('h3', {}, 'Verdict'),
-    verdict,
-    el('h3', {}, 'Cost of the design'),
-    cost,
     errorSlot('*'));
 
   // ---------------------------------------------------------------- controls from options
@@ -227,115 +220,26 @@ export function init(root, state) {
     if (v === null) return;
     setRoute({ fs_out: Number.isNaN(v) ? rateCustom.value : v });
   });
-  presetSelect.addEventListener('change', () => setRoute({ preset: presetSelect.value, spec: {} }));
+  presetSelect.addEventListener('change', () => {
+    // a preset that states a word length sets it (spoken word: 16 bit)
+    const bits = state.get('options').presets[presetSelect.value].bits;
+    const patch = { route: { ...state.get('route'), preset: presetSelect.value, spec: {} } };
+    if (bits) patch.delivery = { ...state.get('delivery'), bits };
+    state.set(patch);
+  });
   resetBtn.addEventListener('click', () => setRoute({ spec: {} }));
 
-  // ---------------------------------------------------------------- live redesign
+  // ---------------------------------------------------------------- errors and resolved edges
 
-  let seq = 0;
-  let controller = null;
-
-  async function redesign() {
-    const s = state.get();
-    const rec = s.recording;
-    const route = s.route;
-    if (!rec || !route || !s.options) return;
-    if (controller) controller.abort();
-    controller = new AbortController();
-    const mine = ++seq;
-    state.set({ designBusy: true });
-    try {
-      // plans: false keeps live edits fast; the plans follow once the controls rest
-      const body = { recording_id: rec.id, fs_out: route.fs_out, preset: route.preset, spec: route.spec, plans: false };
-      const d = await api.design(body, controller.signal);
-      if (mine !== seq) return;
-      state.set({ design: d, designError: null, designBusy: false, plans: null });
-      plansSoon(d.id);
-    } catch (err) {
-      if (err && err.name === 'AbortError') return;
-      if (mine !== seq) return;
-      state.set({ designError: err, designBusy: false });
-    }
-  }
-
-  let plansController = null;
-  const plansSoon = debounce(async (designId) => {
-    if (plansController) plansController.abort();
-    plansController = new AbortController();
-    try {
-      const r = await api.designPlans(designId, plansController.signal);
-      const d = state.get('design');
-      if (d && d.id === designId) state.set({ plans: { design_id: designId, ...r.plans } });
-    } catch (err) {
-      if (err && err.name === 'AbortError') return;
-      const d = state.get('design');
-      if (d && d.id === designId) state.set({ plans: { design_id: designId, single: null, options: [], error: { message: err.message } } });
-    }
-  }, 600);
-
-  const soon = debounce(redesign, 300);
-  let designedFor = null;     // the recording the last request was for (a refresh of its figures is no reason to redesign)
-  state.on(['route', 'recording'], (s, keys) => {
-    if (keys.includes('recording')) {
-      const id = s.recording ? s.recording.id : null;
-      if (id === designedFor && !keys.includes('route')) return;
-      designedFor = id;
-      soon.now();
-    } else {
-      soon();
-    }
-  });
-
-  // ---------------------------------------------------------------- verdict and cost
-
-  state.on(['design', 'designError', 'designBusy'], (s) => {
+  state.on(['design', 'designError'], (s) => {
     clearErrors(root);
     const d = s.design;
-    const err = s.designError;
-    verdict.classList.toggle('busy', !!s.designBusy);
-    if (err) {
-      showError(root, err);
+    if (s.designError) {
+      showError(root, s.designError);
       for (const hint of Object.values(resolvedHints)) hint.textContent = '';
-      verdict.className = 'verdict fail';
-      fill(verdict,
-        el('strong', {}, 'No design for this mask'),
-        el('span', {}, err.message),
-        d ? el('span', { class: 'hint' }, 'The plots still show the last design that could be built.') : null);
       return;
     }
-    if (!d) {
-      fill(verdict, el('span', { class: 'hint' }, s.designBusy ? 'Designing…' : 'Load a recording to design its filter.'));
-      return;
-    }
-    const v = d.verdict;
-    const m = d.figures.measured;
-    verdict.className = `verdict ${v.meets_mask ? 'pass' : 'fail'}${s.designBusy ? ' busy' : ''}`;
-    const headline = v.meets_mask
-      ? 'Meets the mask'
-      : `Does not meet the mask${v.attenuation_margin_db < 0 ? `: rejection short by ${fmt.db(-v.attenuation_margin_db)}` : ''}${v.ripple_margin_db < 0 ? `${v.attenuation_margin_db < 0 ? ',' : ':'} ripple over by ${fmt.ripple(-v.ripple_margin_db)}` : ''}`;
-    fill(verdict,
-      el('strong', { id: 'verdict-headline' }, headline),
-      facts([
-        ['Passband ripple', `${fmt.ripple(m.passband_ripple_db)} (limit ${fmt.ripple(d.mask.ripple_db)})`, v.ripple_margin_db < 0 ? 'bad' : ''],
-        ['Stopband rejection', `${fmt.db(m.stopband_attenuation_db)} (needs ${fmt.db(d.mask.attenuation_db, 0)})`, v.attenuation_margin_db < 0 ? 'bad' : ''],
-        ['Margin', `${fmt.db(v.attenuation_margin_db)} rejection, ${fmt.ripple(v.ripple_margin_db)} ripple`],
-        ['Worst stopband point', fmt.hz(m.worst_stopband_hz)],
-      ], 'facts compact'));
-    const f = d.figures;
-    const pathText = f.path === 'polyphase'
-      ? `polyphase, up ${f.up} / down ${f.down}`
-      : `arbitrary ratio, ${fmt.grouped(f.phases)} phases`;
-    fill(cost, facts([
-      ['Path', pathText],
-      ['Method', (CHOICE_LABELS.method[f.method]) || f.method],
-      ['Filter length', `${fmt.count(f.numtaps, 'taps')} at ${fmt.rate(f.filter_rate_hz)} (estimate ${fmt.grouped(f.numtaps_estimate)})`],
-      ['Taps per phase', fmt.grouped(f.taps_per_phase)],
-      ['Work per output sample', `${fmt.num(f.macs_per_output_sample, 1)} multiply-adds`],
-      ['Work per second', `${fmt.num(f.mmac_per_second, 2)} MMAC/s per channel`],
-      ['Latency', fmt.ms(f.latency_ms)],
-      ['Pre-ringing', fmt.ms(f.prering_ms)],
-      ['Design time', `${fmt.ms(d.timing && d.timing.total_ms, 0)}${d.timing && d.timing.cached ? ' (cached)' : ''}`],
-    ], 'facts compact'), f.method_reason ? el('p', { class: 'hint' }, `Why this method: ${f.method_reason}.`) : null);
+    if (!d) return;
     resolvedHints.passband_hz.textContent = `now ${fmt.hz(d.mask.passband_hz)}`;
     resolvedHints.stopband_hz.textContent = `now ${fmt.hz(d.mask.stopband_hz)}`;
     resolvedHints.passband_fraction.textContent = `lower Nyquist ${fmt.hz(d.mask.lower_nyquist_hz)}`;

@@ -1,0 +1,96 @@
+// The live redesign: each edit of the route or mask asks the server for the order estimate
+// first; an extreme design (the server's limits, e.g. more than 100 000 taps) waits for the
+// user's word in `designEstimate`, anything else is designed at once. The next edit abandons a
+// running redesign (its request is aborted), and so does `designStop`.
+
+import * as api from './api.js';
+import { debounce } from './ui.js';
+
+function keyOf(body) {
+  return JSON.stringify([body.recording_id, body.fs_out, body.preset, Object.entries(body.spec).sort()]);
+}
+
+export function start(state) {
+  let seq = 0;
+  let controller = null;
+  let allowed = null;            // the key of the extreme design the user chose to run
+
+  function abandon() {
+    if (controller) controller.abort();
+    controller = null;
+    seq += 1;
+  }
+
+  async function redesign() {
+    const s = state.get();
+    const rec = s.recording;
+    const route = s.route;
+    if (!rec || !route || !s.options) return;
+    abandon();
+    controller = new AbortController();
+    const { signal } = controller;
+    const mine = seq;
+    const body = { recording_id: rec.id, fs_out: route.fs_out, preset: route.preset, spec: route.spec };
+    const key = keyOf(body);
+    state.set({ designBusy: true, designEstimate: null, designNote: null });
+    try {
+      if (key !== allowed) {
+        const est = await api.estimate(body, signal);
+        if (mine !== seq) return;
+        if (est.extreme) {
+          state.set({ designBusy: false, designEstimate: { ...est, key } });
+          return;
+        }
+      }
+      // plans: false keeps live edits fast; the plans follow once the controls rest
+      const d = await api.design({ ...body, plans: false }, signal);
+      if (mine !== seq) return;
+      state.set({ design: d, designError: null, designBusy: false, plans: null });
+      plansSoon(d.id);
+    } catch (err) {
+      if (err && err.name === 'AbortError') return;
+      if (mine !== seq) return;
+      state.set({ designError: err, designBusy: false });
+    }
+  }
+
+  let plansController = null;
+  const plansSoon = debounce(async (designId) => {
+    if (plansController) plansController.abort();
+    plansController = new AbortController();
+    try {
+      const r = await api.designPlans(designId, plansController.signal);
+      const d = state.get('design');
+      if (d && d.id === designId) state.set({ plans: { design_id: designId, ...r.plans } });
+    } catch (err) {
+      if (err && err.name === 'AbortError') return;
+      const d = state.get('design');
+      if (d && d.id === designId) state.set({ plans: { design_id: designId, single: null, options: [], error: { message: err.message } } });
+    }
+  }, 600);
+
+  const soon = debounce(redesign, 300);
+  let designedFor = null;        // a refresh of the same recording's figures is no reason to redesign
+  state.on(['route', 'recording'], (s, keys) => {
+    if (keys.includes('recording')) {
+      const id = s.recording ? s.recording.id : null;
+      if (id === designedFor && !keys.includes('route')) return;
+      designedFor = id;
+      soon.now();
+    } else {
+      if (state.get('designBusy')) abandon();   // the next edit abandons the running redesign
+      soon();
+    }
+  });
+  state.on('designConfirm', (s) => {
+    if (!s.designConfirm || !s.designEstimate) return;
+    allowed = s.designEstimate.key;
+    soon.now();
+  });
+  state.on('designStop', (s) => {
+    if (!s.designStop) return;
+    abandon();
+    soon.cancel();
+    state.set({ designBusy: false, designEstimate: null, designNote: 'Redesign stopped: the plots show the last design. Edit the mask to design again.' });
+  });
+}

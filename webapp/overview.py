@@ -1,0 +1,167 @@
+"""The picture of a whole recording over time: min/max envelope at screen resolution, short-term
+loudness, and where the samples reach full scale or the true peak goes over (no Flask here).
+
+One streaming pass in blocks (:func:`webapp.media.read_blocks`): memory stays flat whatever the
+duration (the loudness meter keeps one number per 100 ms: 36 000 an hour). The meters are the
+core's: :class:`webapp.dsp.loudness.LoudnessMeter` (BS.1770-4 / EBU Tech 3341 short-term
+loudness), :class:`webapp.dsp.overs.TruePeakOvers` (the true-peak meter's 16x interpolator).
+
+Conventions
+-----------
+* The recording is cut into ``columns`` equal spans (column c holds frames
+  ``c * frames // columns`` up to the next one); every series has one value per column.
+* ``min`` and ``max`` are taken over all channels; ``short_term_lufs`` is the loudest 3 s window
+  ending in the column, or the latest one before it when none ends there (windows hop 100 ms,
+  columns are often shorter); None before the first 3 s and for rates below 8 kHz.
+* Markers list the columns holding at least one full-scale frame or true-peak over, with the
+  count and the time of the first one.
+"""
+
+import time
+
+import numpy as np
+
+from webapp import media
+from webapp.dsp.errors import ParameterError
+from webapp.dsp.loudness import MIN_LOUDNESS_RATE_HZ, LoudnessMeter
+from webapp.dsp.overs import FULL_SCALE, TruePeakOvers, frame_peaks, full_scale_frames
+
+__all__ = ["overview", "DEFAULT_COLUMNS", "MAX_COLUMNS", "OVER_THRESHOLD_DBTP"]
+
+DEFAULT_COLUMNS = 1200
+MAX_COLUMNS = 4000
+#: True-peak overs are reported above this level: 0 dBTP, over full scale once reconstructed.
+OVER_THRESHOLD_DBTP = 0.0
+_BLOCK_FRAMES = 1 << 17
+
+
+def _columns(value, frames):
+    if isinstance(value, bool) or not isinstance(value, int) or not 1 <= value <= MAX_COLUMNS:
+        raise ParameterError(f"columns must be a whole number from 1 to {MAX_COLUMNS}, got "
+                             f"{value!r}", "columns")
+    return max(1, min(value, frames))
+
+
+class _Markers:
+    """Per-column count and first frame of some event."""
+
+    def __init__(self, columns):
+        self.count = np.zeros(columns, dtype=np.int64)
+        self.first = np.full(columns, -1, dtype=np.int64)
+
+    def add(self, frames, cols):
+        if frames.size == 0:
+            return
+        np.add.at(self.count, cols, 1)
+        fresh = self.first[cols] < 0
+        # frames come in ascending order: the first occurrence per column is the earliest
+        uniq, idx = np.unique(cols[fresh], return_index=True)
+        self.first[uniq] = frames[fresh][idx]
+
+    def figures(self, rate_hz):
+        cols = np.flatnonzero(self.count)
+        return dict(total=int(self.count.sum()), column=cols.tolist(),
+                    time_s=(self.first[cols] / rate_hz).round(4).tolist(),
+                    count=self.count[cols].tolist())
+
+
+def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOLD_DBTP,
+             probe=None):
+    """Figures for the overview plot of the recording at ``path``.
+
+    Parameters
+    ----------
+    path : str
+    columns : int, optional
+        Points across (the plot's width in pixels is a good choice); 1 to MAX_COLUMNS.
+    over_threshold_dbtp : float, optional
+    probe : media.Probe, optional
+
+    Returns
+    -------
+    dict
+        ``rate_hz``, ``channels``, ``frames``, ``duration_s``, ``columns``, ``time_s`` (start of
+        each column), ``min``, ``max``, ``short_term_lufs``, ``full_scale`` and ``overs``
+        (markers: ``total``, ``column``, ``time_s``, ``count``), ``full_scale_level``,
+        ``over_threshold_dbtp``, ``seconds`` (time taken).
+
+    Raises
+    ------
+    AudioFileError, ParameterError
+    """
+    t0 = time.perf_counter()
+    info = probe if probe is not None else media.probe(path)
+    frames, rate = info.frames, info.rate_hz
+    if frames == 0:
+        raise ParameterError("the recording has no frames to draw", "recording_id")
+    n = _columns(columns, frames)
+    low = np.full(n, np.inf)
+    high = np.full(n, -np.inf)
+    clipped, overs = _Markers(n), _Markers(n)
+    finder = TruePeakOvers(channels=info.channels, threshold_dbtp=over_threshold_dbtp)
+    loud = LoudnessMeter(rate_hz=rate, channels=info.channels) \
+        if rate >= MIN_LOUDNESS_RATE_HZ else None
+    pos = 0
+    for block in media.read_blocks(path, blocksize=_BLOCK_FRAMES):
+        m = block.shape[0]
+        col = (np.arange(pos, pos + m, dtype=np.int64) * n) // frames
+        starts = np.flatnonzero(np.r_[True, col[1:] != col[:-1]])
+        cols = col[starts]                     # distinct and ascending within the block
+        lo, hi = _frame_range(block)
+        low[cols] = np.minimum(low[cols], np.minimum.reduceat(lo, starts))
+        high[cols] = np.maximum(high[cols], np.maximum.reduceat(hi, starts))
+        peaks = frame_peaks(block)
+        at_fs = np.flatnonzero(full_scale_frames(block, peaks))
+        clipped.add(at_fs + pos, col[at_fs])
+        over = finder.process(block)
+        overs.add(over, (over * n) // frames)
+        if loud is not None:
+            loud.process(block)
+        pos += m
+    over = finder.finish()
+    overs.add(over, (over * n) // frames)
+    edges = (np.arange(n + 1, dtype=np.int64) * frames) // n
+    return dict(
+        rate_hz=rate, channels=info.channels, frames=frames, duration_s=frames / rate,
+        columns=n, time_s=(edges[:-1] / rate).round(4).tolist(),
+        min=np.round(low, 5).tolist(), max=np.round(high, 5).tolist(),
+        short_term_lufs=_short_term_columns(loud, edges, rate),
+        full_scale=clipped.figures(rate), overs=overs.figures(rate),
+        full_scale_level=FULL_SCALE, over_threshold_dbtp=float(over_threshold_dbtp),
+        seconds=time.perf_counter() - t0)
+
+
+def _frame_range(block):
+    """Smallest and largest sample of each frame over its channels (a loop over the channels:
+    numpy reduces a short last axis slowly)."""
+    lo = block[:, 0].copy()
+    hi = block[:, 0].copy()
+    for c in range(1, block.shape[1]):
+        np.minimum(lo, block[:, c], out=lo)
+        np.maximum(hi, block[:, c], out=hi)
+    return lo, hi
+
+
+def _short_term_columns(loud, edges, rate):
+    """The loudest short-term value ending in each column (None where there is none)."""
+    n = edges.size - 1
+    out = [None] * n
+    if loud is None:
+        return out
+    values = loud.short_term_lufs()
+    if values.size == 0:
+        return out
+    # window i ends at step i + 30, i.e. at frame (i + 30) * rate // 10
+    ends = ((np.arange(values.size) + 30) * rate) // 10
+    cols = np.clip(np.searchsorted(edges, ends, side="right") - 1, 0, n - 1)
+    best = np.full(n, np.nan)
+    has = np.zeros(n, dtype=bool)
+    has[cols] = True
+    best[has] = -np.inf
+    np.maximum.at(best, cols, values)
+    # carry the latest value into columns where no window ends
+    last = np.maximum.accumulate(np.where(has, np.arange(n), -1))
+    for c in np.flatnonzero(last >= 0):
+        v = best[last[c]]
+        out[c] = round(float(v), 2) if np.isfinite(v) else None
+    return out
