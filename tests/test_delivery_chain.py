@@ -114,8 +114,8 @@ def test_loudness_and_ceiling_without_the_limiter_report_the_miss(tmp_audio, tmp
                           -4, "--ceiling", -1, "--json")
     assert code == 5
     figs = json.loads(out)
-    assert figs["delivery_report"]["met"] is False
-    assert any("allow the limiter" in n for n in figs["delivery_report"]["notes"])
+    assert figs["delivery"]["met"] is False
+    assert any("allow the limiter" in n for n in figs["delivery"]["notes"])
 
 
 def test_the_limiter_holds_a_ceiling_alone_without_changing_the_level(tmp_audio, tmp_path, rng):
@@ -154,7 +154,7 @@ def test_podcast_profile_writes_an_mp3_verified_after_decoding(tmp_audio, tmp_pa
                              "--json")
     assert code == 0, err
     figs = json.loads(stdout)
-    report = figs["delivery_report"]
+    report = figs["delivery"]
     assert report["verified_on"] == "the decoded file" and report["mp3_kbps"] == 128
     assert report["write_passes"] >= 1
     y, rate = sf.read(out)
@@ -254,22 +254,22 @@ def test_same_rate_passes_the_samples_through_unless_the_filter_is_asked_for(tmp
     src = tmp_audio("noise.wav", x, 48000, subtype="FLOAT")
     recipe = tmp_path / "r.json"
     code, out, err = _run(capsys, "convert", src, tmp_path / "same.wav", "--to", 48000,
-                          "--json", "--write-recipe", recipe)
+                          "--bits", "32f", "--json", "--write-recipe", recipe)
     assert code == 0, err
     y, _ = sf.read(tmp_path / "same.wav", dtype="float32")
     assert np.array_equal(y, x)                      # bit for bit: no filter ran
-    assert json.loads(out)["filter_applied"] is False
+    assert json.loads(out)["delivery"]["filter_applied"] is False
     assert load_recipe(recipe).filter_applied is False
     code, out, err = _run(capsys, "convert", src, tmp_path / "filtered.wav", "--to", 48000,
-                          "--filter-same-rate", "--json")
+                          "--bits", "32f", "--filter-same-rate", "--json")
     assert code == 0, err
     z, _ = sf.read(tmp_path / "filtered.wav", dtype="float32")
-    assert json.loads(out)["filter_applied"] is True and not np.array_equal(z, x)
+    assert json.loads(out)["delivery"]["filter_applied"] is True and not np.array_equal(z, x)
     # a re-run of the unfiltered recipe is exact
     code, out, err = _run(capsys, "convert", src, tmp_path / "again.wav", "--recipe", recipe,
                           "--json")
     assert code == 0, err
-    assert json.loads(out)["reproduces_recipe"] is True
+    assert json.loads(out)["recipe"]["reproduces"] is True
 
 
 # --------------------------------------------------------------------------------------------
@@ -351,14 +351,16 @@ def test_profile_fields_are_overridden_by_the_options(tmp_audio, tmp_path, rng, 
                           "speech_service_16k", "--json")
     assert code == 0, err
     figs = json.loads(out)
-    assert (figs["fs_out"], figs["channels_out"], figs["bits"]) == (16000, 1, "16")
+    assert (figs["output"]["rate_hz"], figs["output"]["channels"], figs["delivery"]["bits"]) == (
+        16000, 1, "16")
     assert figs["delivery"]["channel_layout"] == "mono" and figs["delivery"]["ceiling_dbtp"] == -1
     code, out, err = _run(capsys, "convert", src, tmp_path / "u.wav", "--profile",
                           "speech_service_16k", "--to", 24000, "--channels", "pick", "--pick", 2,
                           "--ceiling", -3, "--json")
     assert code == 0, err
     figs = json.loads(out)
-    assert (figs["fs_out"], figs["channels_out"], figs["delivery"]["pick_channel"]) == (24000, 1, 2)
+    assert (figs["output"]["rate_hz"], figs["output"]["channels"],
+            figs["delivery"]["pick_channel"]) == (24000, 1, 2)
     assert figs["delivery"]["ceiling_dbtp"] == -3
 
 
@@ -377,5 +379,5 @@ def test_a_limited_mono_delivery_re_runs_from_its_recipe_bit_for_bit(tmp_audio, 
     code, out, err = _run(capsys, "convert", src, tmp_path / "b.wav", "--recipe", recipe,
                           "--json")
     assert code == 0, err
-    assert json.loads(out)["reproduces_recipe"] is True
+    assert json.loads(out)["recipe"]["reproduces"] is True
     assert (tmp_path / "a.wav").read_bytes() == (tmp_path / "b.wav").read_bytes()

@@ -344,7 +344,7 @@ def _print_convert(args, r):
                   f"{_db(src['true_peak_dbtp'], 'dBTP', 1)}; output "
                   f"{_level(out['integrated_lufs'], 'LUFS')}; design "
                   f"{_grouped(r['design']['numtaps'])} taps ({r['design']['method']})")
-    _say(args, _delivery_line(dl))
+    _detail(args, _delivery_line(dl))
     if "recipe" in r and r["recipe"]["reproduces"]:
         _say(args, "output is byte-identical to the recipe's (same sha256), and every recorded "
                    "figure was reproduced")

@@ -280,7 +280,7 @@ def test_a_version_1_recipe_is_upgraded_and_re_runs_bit_for_bit(converted, tmp_p
     code, out, err = _run(capsys, "convert", converted["src"], tmp_path / "again.wav",
                           "--recipe", path, "--json")
     assert code == 0, err
-    assert json.loads(out)["reproduces_recipe"] is True
+    assert json.loads(out)["recipe"]["reproduces"] is True
     assert _sha(tmp_path / "again.wav") == old["output"]["sha256"]
 
 
