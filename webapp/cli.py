@@ -41,8 +41,8 @@ SPEC_OPTIONS = [
 
 
 def _add_spec_options(p):
-    p.add_argument("--preset", default=DEFAULT_PRESET, choices=sorted(PRESETS),
-                   help=f"starting spec (default {DEFAULT_PRESET})")
+    p.add_argument("--preset", default=None, choices=sorted(PRESETS),
+                   help=f"starting spec (default: the profile's, else {DEFAULT_PRESET})")
     for flag, field, typ, text in SPEC_OPTIONS:
         p.add_argument(flag, dest=field, type=typ, default=None, help=text)
     p.add_argument("--transition-aliasing", dest="allow_transition_aliasing",
@@ -54,7 +54,12 @@ def spec_from_args(args):
     data = {field: getattr(args, field) for _, field, _, _ in SPEC_OPTIONS}
     data["allow_transition_aliasing"] = args.allow_transition_aliasing
     data = {k: v for k, v in data.items() if v is not None}
-    return spec_from_dict(data, base=preset(args.preset))
+    return spec_from_dict(data, base=preset(_preset_name(args)))
+
+
+def _preset_name(args):
+    chosen = _profile_of(args)
+    return args.preset or (chosen.preset if chosen else DEFAULT_PRESET)
 
 
 def _print_json(obj):
@@ -181,30 +186,88 @@ def cmd_plans(args):
 
 
 def _add_delivery_options(p):
+    from .delivery import CHANNEL_LAYOUTS, MONO_LAWS, MP3_MODES
+    from .profiles import profile_names
+    p.add_argument("--profile", choices=list(profile_names()), default=None,
+                   help="a destination's delivery (rate, channels, word length or MP3 bit rate, "
+                        "loudness, ceiling, limiter, filter preset); every other option given "
+                        "overrides its field")
     p.add_argument("--bits", choices=list(WORD_LENGTHS), default=None,
-                   help="output word length (default: the preset's if it states one, as "
-                        "spoken_word_delivery does (16), else like the source)")
-    p.add_argument("--dither", choices=list(DITHERS), default="tpdf",
+                   help="output word length (default: the profile's, else the preset's if it "
+                        "states one, as spoken_word_delivery does (16), else like the source)")
+    p.add_argument("--dither", choices=list(DITHERS), default=None,
                    help="dither for 16/24-bit outputs (default tpdf)")
-    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=0,
+    p.add_argument("--seed", type=whole_arg("--seed", low=0, high=2**63 - 1), default=None,
                    help="dither seed (default 0)")
     p.add_argument("--ceiling", type=number_arg("--ceiling", low=-60.0, high=0.0, unit="dBTP"),
                    default=None,
-                   help="true-peak ceiling in dBTP (gain applied to stay under it)")
+                   help="true-peak ceiling in dBTP (gain applied, or the limiter, to stay under it)")
     p.add_argument("--loudness", type=number_arg("--loudness", low=-70.0, high=0.0, unit="LUFS"),
                    default=None,
                    help="integrated loudness target in LUFS")
+    p.add_argument("--tolerance", type=number_arg("--tolerance", low=0.0, high=10.0, unit="LU"),
+                   default=None, help="how far the loudness may land from the target (default 0.5 LU)")
+    p.add_argument("--limiter", action=argparse.BooleanOptionalAction, default=None,
+                   help="let the true-peak limiter hold the ceiling so the loudness target is met")
+    p.add_argument("--max-limiting", type=number_arg("--max-limiting", low=0.0, high=40.0, unit="dB"),
+                   default=None, help="the most gain reduction the limiter may apply (default 6 dB)")
+    p.add_argument("--channels", choices=list(CHANNEL_LAYOUTS), default=None,
+                   help="channel layout: keep, mono (fold-down), pick (one channel), stereo "
+                        "(from mono)")
+    p.add_argument("--mono-law", choices=list(MONO_LAWS), default=None,
+                   help="how mono sums the channels: half (1/N, default), equal_power (1/sqrt N), sum")
+    p.add_argument("--pick", type=whole_arg("--pick", low=1, high=64), default=None,
+                   help="the channel --channels pick delivers (1 = first)")
+    p.add_argument("--mp3-kbps", type=whole_arg("--mp3-kbps", low=32, high=320), default=None,
+                   help="MP3 bit rate, kbit/s (default 128)")
+    p.add_argument("--mp3-mode", choices=list(MP3_MODES), default=None,
+                   help="MP3 bit-rate mode (default constant)")
+    p.add_argument("--filter-same-rate", action="store_true",
+                   help="run the filter even when the rate does not change (default: the "
+                        "samples pass through; only the delivery chain runs)")
     p.add_argument("--block-frames", type=whole_arg("--block-frames", low=1, high=2**24),
                    default=65536, help="frames per block read")
 
 
+def _add_replace_option(p, text):
+    p.add_argument("--replace", action="store_true", help=text)
+
+
+# option dest -> Delivery field
+_DELIVERY_OPTIONS = {"bits": "bits", "dither": "dither", "seed": "dither_seed",
+                     "ceiling": "ceiling_dbtp", "loudness": "loudness_lufs",
+                     "tolerance": "loudness_tolerance_lu", "limiter": "limiter",
+                     "max_limiting": "max_limiting_db", "channels": "channel_layout",
+                     "mono_law": "mono_law", "pick": "pick_channel", "mp3_kbps": "mp3_kbps",
+                     "mp3_mode": "mp3_mode"}
+
+
+def _profile_of(args):
+    from .profiles import PROFILES
+    return PROFILES[args.profile] if getattr(args, "profile", None) else None
+
+
 def _delivery_from_args(args):
-    """The delivery the options ask for; without --bits, the preset's word length if it
-    states one (spoken word: 16 bit), else like the source."""
+    """The Delivery: the profile's (or the defaults), each option given overriding its field;
+    without --bits and a profile, the preset's word length if it states one (spoken word: 16
+    bit), else like the source."""
     from .delivery import Delivery
-    bits = args.bits if args.bits is not None else preset_bits(args.preset)
-    return Delivery.from_dict(dict(bits=bits, dither=args.dither, dither_seed=args.seed,
-                                   ceiling_dbtp=args.ceiling, loudness_lufs=args.loudness))
+    chosen = _profile_of(args)
+    data = chosen.delivery().to_dict() if chosen else {"bits": preset_bits(_preset_name(args))}
+    data.update({field: getattr(args, dest) for dest, field in _DELIVERY_OPTIONS.items()
+                 if getattr(args, dest) is not None})
+    if data.get("ceiling_dbtp") is None and data.get("limiter") and args.limiter:
+        from .dsp.errors import ParameterError
+        raise ParameterError("--limiter needs a ceiling to hold (--ceiling DBTP)", "--limiter")
+    return Delivery.from_dict(data)
+
+
+def _fs_out_of(args):
+    """--to, else the profile's rate (None: the source's rate for a profile that keeps it)."""
+    if args.fs_out is not None:
+        return args.fs_out
+    chosen = _profile_of(args)
+    return chosen.rate_hz if chosen else None
 
 
 def _prepare_convert(args):
@@ -214,23 +277,25 @@ def _prepare_convert(args):
         recipe = load_recipe(args.recipe)
         # the source is checked before any work: nothing is written for a wrong source
         return recipe, jobs.prepare_rerun(recipe, args.input, args.output)
-    fs_out = args.fs_out
-    if fs_out is None and (args.speed or args.true_rate):
+    fs_out = _fs_out_of(args)
+    if fs_out is None and (args.speed or args.true_rate or args.profile):
         from .media import probe
-        fs_out = probe(args.input).rate_hz     # a speed change keeps the rate by default
+        fs_out = probe(args.input).rate_hz     # a speed change (or such a profile) keeps the rate
     if fs_out is None:
         from .dsp.errors import ParameterError
-        raise ParameterError("convert needs --to HZ (or --recipe FILE)", "fs_out")
+        raise ParameterError("convert needs --to HZ (or --profile NAME, or --recipe FILE)",
+                             "fs_out")
     return None, jobs.prepare(args.input, args.output, fs_out=fs_out,
                               spec=spec_from_args(args), delivery=_delivery_from_args(args),
                               block_frames=args.block_frames, speed=args.speed,
-                              true_rate_hz=args.true_rate)
+                              true_rate_hz=args.true_rate, filter_same_rate=args.filter_same_rate)
 
 
 def cmd_convert(args):
     from . import jobs, partials
     from .report import convert_report
     recipe, job = _prepare_convert(args)
+    jobs.refuse_existing(args.output, replace_existing=args.replace)
     partials.sweep(os.path.dirname(os.path.abspath(args.output)))   # a crashed run's leftovers
     bar = Progress(os.path.basename(args.input),
                    enabled=not (args.quiet or args.silent or args.json))
@@ -250,7 +315,7 @@ def cmd_convert(args):
     if args.sheet:
         from . import sheet
         sheet.write_sheet(result, args.sheet, title=args.title, author=args.author,
-                          note=args.note)
+                          note=args.note, profile=None if args.recipe else _profile_of(args))
     for warning in result.warnings:
         sys.stderr.write(f"rateferry: warning: {warning}\n")
     report = convert_report(result, rerun=check)
@@ -262,6 +327,10 @@ def cmd_convert(args):
         err = jobs.RecipeMismatch(check.differences)
         sys.stderr.write(f"rateferry: error: {err.message}; the output was kept for inspection\n")
         return jobs.EXIT_RECIPE_MISMATCH
+    if result.delivery_met is False:
+        notes = "; ".join(result.delivery_report.get("notes") or ()) or "see the report"
+        sys.stderr.write(f"rateferry: delivery target NOT met: {notes}; the file was kept\n")
+        return jobs.EXIT_DELIVERY_NOT_MET
     return 0
 
 
@@ -275,9 +344,31 @@ def _print_convert(args, r):
                   f"{_db(src['true_peak_dbtp'], 'dBTP', 1)}; output "
                   f"{_level(out['integrated_lufs'], 'LUFS')}; design "
                   f"{_grouped(r['design']['numtaps'])} taps ({r['design']['method']})")
+    _detail(args, _delivery_line(dl))
     if "recipe" in r and r["recipe"]["reproduces"]:
         _say(args, "output is byte-identical to the recipe's (same sha256), and every recorded "
                    "figure was reproduced")
+
+
+def _delivery_line(dl):
+    """The delivery's verification in one line: loudness, true peak, limiter, passes."""
+    parts = []
+    meters = dl.get("verified") or {}
+    if meters.get("integrated_lufs") is not None:
+        parts.append(f"loudness {meters['integrated_lufs']:.2f} LUFS")
+    if meters.get("true_peak_dbtp") is not None:
+        parts.append(f"true peak {meters['true_peak_dbtp']:.2f} dBTP")
+    lim = dl.get("limiter")
+    if lim:
+        parts.append(f"limiter: largest reduction {lim['max_gain_reduction_db']:.2f} dB, "
+                     f"limiting {lim['limited_s']:.2f} s")
+    parts.append(f"{dl.get('write_passes', 1)} write pass(es), verified on "
+                 f"{dl.get('verified_on', 'the written samples')}")
+    if not dl.get("filter_applied", True):
+        parts.append("same rate: no filter")
+    verdict = {True: "delivery met", False: "delivery NOT met", None: "nothing promised"}[
+        dl.get("met")]
+    return f"  {verdict}: " + ", ".join(parts)
 
 
 def cmd_batch(args):
@@ -289,10 +380,11 @@ def cmd_batch(args):
     if args.recipe:
         from .recipe import load_recipe
         recipe = load_recipe(args.recipe)
-    settings = Settings(out_dir=args.out, fs_out=args.fs_out, spec=spec_from_args(args),
+    settings = Settings(out_dir=args.out, fs_out=_fs_out_of(args), spec=spec_from_args(args),
                         delivery=_delivery_from_args(args), block_frames=args.block_frames,
                         format=f".{args.format}" if args.format else None,
-                        name_pattern=check_pattern(args.names), recipe=recipe)
+                        name_pattern=check_pattern(args.names), recipe=recipe,
+                        filter_same_rate=args.filter_same_rate)
     options = batch.BatchOptions(
         inputs=tuple(args.inputs), settings=settings,
         scheduler=scheduler_address(args.scheduler), workers=args.workers,
@@ -474,6 +566,7 @@ def _convert_options(p):
     p.add_argument("--title", default=None, help="design sheet title")
     p.add_argument("--author", default=None, help="design sheet author")
     p.add_argument("--note", default=None, help="design sheet note")
+    _add_replace_option(p, "replace the output file if it exists (default: refuse)")
     p.add_argument("--json", action="store_true",
                    help="print the report as JSON (schema: webapp/schemas/"
                         "convert-report.schema.json)")
@@ -499,7 +592,8 @@ def build_parser():
     p.add_argument("--json", action="store_true")
     p.set_defaults(func=cmd_plans)
 
-    p = sub.add_parser("convert", parents=common, help="convert a file")
+    p = sub.add_parser("convert", parents=common, help="convert a file", epilog=CONVERT_EPILOG,
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
     _convert_options(p)
     p.set_defaults(func=cmd_convert)
 
@@ -559,6 +653,12 @@ def build_parser():
     return ap
 
 
+CONVERT_EPILOG = """exit status: 0 done (and the delivery met its loudness target within tolerance
+and its true-peak ceiling, when set); 2 bad input (nothing written); 3 a --recipe re-run did
+not reproduce its recipe (the output is kept); 5 the delivery did not meet its target or its
+ceiling (the output is kept; the reasons are printed).
+An existing output is refused unless --replace is given."""
+
 BATCH_EPILOG = """exit status: 0 every file done (now or in an earlier run); 2 bad input found
 before any work (nothing converted); 4 some files failed (the others are done; see the report);
 130 interrupted (run the same command again to go on).
@@ -588,8 +688,7 @@ def _add_batch_parser(sub, common):
                         "local cluster)")
     p.add_argument("--workers", type=whole_arg("--workers", low=1, high=4096), default=None,
                    help="worker processes of the local cluster (default: one per core)")
-    p.add_argument("--replace", action="store_true",
-                   help="replace outputs that this batch did not make")
+    _add_replace_option(p, "replace outputs that this batch did not make")
     p.add_argument("--no-sheet", action="store_true", help="skip the batch sheet (HTML)")
     p.add_argument("--json", action="store_true", help="JSON-lines events on stdout")
     p.set_defaults(func=cmd_batch)

@@ -5,7 +5,7 @@ limiter, channel layout and MP3 bit rate.
 and batch manifests all build it with :meth:`Delivery.from_dict` (JSON keys equal the field names).
 """
 
-from dataclasses import dataclass, asdict, fields
+from dataclasses import dataclass, asdict, fields, replace
 import math
 
 import numpy as np
@@ -16,7 +16,9 @@ from .dsp.errors import ParameterError
 from .dsp.numbers import finite_number, shown
 
 __all__ = ["Delivery", "DITHERS", "WORD_LENGTHS", "CHANNEL_LAYOUTS", "MONO_LAWS", "MP3_MODES",
-           "MP3_KBPS_RANGE", "gain_for"]
+           "MP3_KBPS_RANGE", "gain_for", "Attempt", "first_attempt", "review", "tolerance_lu",
+           "uses_limiter", "working_ceiling_dbtp", "DEFAULT_TOLERANCE_LU", "AIM_LU",
+           "MAX_WRITE_PASSES"]
 
 MP3_MODES = ("constant", "average", "variable")
 MP3_KBPS_RANGE = (32, 320)     # MPEG-1 Layer III bit rates (common practice)
@@ -36,7 +38,7 @@ class Delivery:
         for podcasts); applied together with the ceiling, the lower gain wins unless the
         limiter may act.
     loudness_tolerance_lu : float or None. How far the delivered loudness may land from the
-        target (e.g. 0.5 LU for EBU R 128); None: no promise, report only.
+        target (e.g. 0.5 LU for EBU R 128); None: DEFAULT_TOLERANCE_LU (0.5 LU).
     limiter : bool. Let the true-peak limiter hold the ceiling so the loudness target is met.
     max_limiting_db : float. The most gain reduction the limiter may apply (0 to 40 dB); a
         delivery that would need more is reported as not meeting its target.
@@ -142,37 +144,193 @@ def _number(value):
     return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
 
 
-def gain_for(delivery, out_meters, bits, rate_hz):
-    """Gain (dB) that meets the ceiling and/or the loudness target; the reason in words.
+#: Default loudness tolerance when a target is set without one: EBU R 128's +-0.5 LU (the
+#: broadcast programme profile cites it).
+DEFAULT_TOLERANCE_LU = 0.5
+#: How close to the target a limited delivery aims (issue 13: "aim for +-0.1 LU"); another
+#: write pass corrects the gain when the verified loudness lands further away.
+AIM_LU = 0.1
+#: Most write passes of one delivery (gain corrections and codec overshoot corrections).
+MAX_WRITE_PASSES = 4
+# A codec's overshoot is corrected by this much more than was measured (ours).
+_OVERSHOOT_MARGIN_DB = 0.3
 
-    For PCM outputs the ceiling keeps room for the requantisation error: TPDF moves a sample by
-    at most 1 LSB and rounding by half of one (1.5 LSB); with noise shaping the error passes
-    through the noise transfer function, whose taps bound it by 1.5 LSB * sum |ntf|.
+
+@dataclass(frozen=True)
+class Attempt:
+    """One write pass's settings: the gain, the limiter's ceiling, and the largest gain the
+    ceiling and the allowed limiting permit (``gain_cap_db``; None: no cap)."""
+
+    gain_db: float
+    reason: str
+    limiter_ceiling_dbtp: float | None = None
+    gain_cap_db: float | None = None
+    limiting_needed_db: float = 0.0
+    # kept across write passes: (gain, delivered loudness) of the passes before, the codec
+    # overshoot corrected so far, the first pass's gain and reason
+    history: tuple = ()
+    overshoot_db: float = 0.0
+    first_gain_db: float | None = None
+    base_reason: str = ""
+
+    @property
+    def capped(self):
+        return self.gain_cap_db is not None and self.gain_db >= self.gain_cap_db - 1e-9
+
+
+def tolerance_lu(delivery):
+    """The loudness tolerance that applies (:data:`DEFAULT_TOLERANCE_LU` when none is set)."""
+    if delivery.loudness_tolerance_lu is not None:
+        return float(delivery.loudness_tolerance_lu)
+    return DEFAULT_TOLERANCE_LU
+
+
+def uses_limiter(delivery):
+    """The limiter runs when asked for and there is a ceiling for it to hold."""
+    return bool(delivery.limiter and delivery.ceiling_dbtp is not None)
+
+
+def working_ceiling_dbtp(delivery, bits, rate_hz):
+    """The ceiling less room for the requantisation error.
+
+    TPDF moves a sample by at most 1 LSB and rounding by half of one (1.5 LSB); with noise
+    shaping the error passes through the noise transfer function, whose taps bound it by
+    1.5 LSB * sum |ntf|.
     """
-    reasons = []
-    gains = []
+    lsb = {"16": 2.0**-15, "24": 2.0**-23}.get(bits, 0.0) * 1.5
+    if delivery.dither == "shaped" and lsb:
+        lsb *= float(np.sum(np.abs(noise_transfer_taps(rate_hz))))
+    return 20 * math.log10(max(10 ** (delivery.ceiling_dbtp / 20.0) - lsb, 1e-12))
+
+
+def first_attempt(delivery, out_meters, bits, rate_hz):
+    """The first write pass: the gain that meets the loudness target and/or the ceiling.
+
+    ``out_meters`` are the converted signal's (after the channel layout) at unity gain. Without
+    the limiter the lower of the two gains wins (a ceiling alone only ever lowers the level);
+    with it the loudness gain is applied and the limiter holds the ceiling, up to
+    ``max_limiting_db`` of gain reduction: a target needing more is capped there (and will be
+    reported as not met when that leaves it out of tolerance).
+    """
+    limiter = uses_limiter(delivery)
+    gain, why = 0.0, "report only"
     if delivery.loudness_lufs is not None:
         lufs = out_meters["integrated_lufs"]
         if lufs is None:
             raise ParameterError("loudness_lufs can't be applied: the output is silent (no "
                                  "gated loudness)", "loudness_lufs")
-        gains.append((delivery.loudness_lufs - lufs, "loudness target"))
-    if delivery.ceiling_dbtp is not None:
-        tp = out_meters["true_peak_dbtp"]
-        lsb = {"16": 2.0**-15, "24": 2.0**-23}.get(bits, 0.0) * 1.5
-        if delivery.dither == "shaped" and lsb:
-            lsb *= float(np.sum(np.abs(noise_transfer_taps(rate_hz))))
-        ceiling = 20 * math.log10(max(10 ** (delivery.ceiling_dbtp / 20.0) - lsb, 1e-12))
-        g = 0.0 if tp is None else ceiling - tp
-        if delivery.loudness_lufs is None:
-            g = min(g, 0.0)   # a ceiling alone only ever lowers the level
-        gains.append((g, "true-peak ceiling"))
-    if not gains:
-        return 0.0, "report only"
-    g, why = min(gains)
-    if len(gains) == 2:
-        other = max(gains)[1]
-        reasons.append(f"{why} won (the {other} alone would give {max(gains)[0]:+.2f} dB)")
+        gain, why = delivery.loudness_lufs - lufs, "loudness target"
+    if delivery.ceiling_dbtp is None:
+        return Attempt(gain_db=float(gain), reason=why)
+    ceiling = working_ceiling_dbtp(delivery, bits, rate_hz)
+    tp = out_meters["true_peak_dbtp"]
+    room = 0.0 if tp is None else ceiling - tp        # gain that puts the peak on the ceiling
+    if not limiter:
+        # the lower gain wins; the reasons read as they did before the limiter (recipe
+        # version 1 records them, and its re-runs compare them)
+        cap = room if delivery.loudness_lufs is not None else min(room, 0.0)
+        gains = [(cap, "true-peak ceiling")]
+        if delivery.loudness_lufs is not None:
+            gains.append((gain, "loudness target"))
+        g, why = min(gains)
+        if len(gains) == 2:
+            why = f"{why} won (the {max(gains)[1]} alone would give {max(gains)[0]:+.2f} dB)"
+        return Attempt(gain_db=float(g), reason=why, gain_cap_db=float(cap))
+    from .dsp.limiter import MARGIN_DB
+    # the limiter reduces from its threshold, MARGIN_DB under its ceiling
+    cap = room + delivery.max_limiting_db - MARGIN_DB
+    needed = max(0.0, gain - room + MARGIN_DB)
+    if delivery.loudness_lufs is None:
+        why = "level kept; the limiter holds the ceiling"
     else:
-        reasons.append(why)
-    return float(g), "; ".join(reasons)
+        why = "loudness target; the limiter holds the ceiling"
+    if gain > cap:
+        why = (f"loudness target capped: it needs {needed:.2f} dB of limiting, more than the "
+               f"{delivery.max_limiting_db:g} dB allowed")
+        gain = cap
+    return Attempt(gain_db=float(gain), reason=why, limiter_ceiling_dbtp=float(ceiling),
+                   gain_cap_db=float(cap), limiting_needed_db=float(needed))
+
+
+def review(delivery, attempt, meters, *, passes_done, lossy=False):
+    """Check a written pass against the delivery; returns ``(next_attempt or None, verdict)``.
+
+    ``meters`` are the delivered file's (decoded, for a lossy codec). A true peak over the
+    ceiling (a codec's overshoot) lowers the limiter's ceiling (or, without the limiter, the
+    gain) by the overshoot and :data:`_OVERSHOOT_MARGIN_DB` more; a loudness further than
+    :data:`AIM_LU` from the target corrects the gain (within its cap). Up to
+    :data:`MAX_WRITE_PASSES` passes; the last is kept whatever it measures.
+
+    verdict: dict with ``met`` (None when nothing was promised), ``notes`` (words), and the
+    figures checked.
+    """
+    tp, lufs = meters.get("true_peak_dbtp"), meters.get("integrated_lufs")
+    ceiling, target = delivery.ceiling_dbtp, delivery.loudness_lufs
+    tol = tolerance_lu(delivery)
+    notes = []
+    over = ceiling is not None and tp is not None and tp > ceiling
+    off = None if target is None or lufs is None else target - lufs
+    out_of_tolerance = off is not None and abs(off) > tol + 1e-9
+    if over:
+        notes.append(f"true peak {tp:.2f} dBTP is over the {ceiling:g} dBTP ceiling")
+    if target is not None and lufs is None:
+        notes.append("the delivered file has no gated loudness (silent)")
+        out_of_tolerance = True
+    elif out_of_tolerance:
+        notes.append(f"loudness {lufs:.2f} LUFS is {abs(off):.2f} LU from the {target:g} LUFS "
+                     f"target, outside the +-{tol:g} LU tolerance")
+    if attempt.capped and attempt.limiting_needed_db > 0 and delivery.loudness_lufs is not None:
+        notes.append(f"the target needs more limiting than the {delivery.max_limiting_db:g} dB "
+                     f"allowed (about {attempt.limiting_needed_db:.2f} dB by the first measurement)")
+    elif attempt.capped and not uses_limiter(delivery) and out_of_tolerance:
+        notes.append("the ceiling held the gain down: allow the limiter to meet the target")
+    promised = ceiling is not None or target is not None
+    verdict = dict(met=(not over and not out_of_tolerance) if promised else None, notes=notes,
+                   loudness_tolerance_lu=tol if target is not None else None,
+                   true_peak_dbtp=tp, integrated_lufs=lufs, write_passes=passes_done,
+                   verified_on="the decoded file" if lossy else "the written samples")
+    if passes_done >= MAX_WRITE_PASSES:
+        return None, verdict
+    nxt = attempt
+    if over:
+        lower = tp - ceiling + _OVERSHOOT_MARGIN_DB
+        if attempt.limiter_ceiling_dbtp is not None:
+            nxt = replace(nxt, limiter_ceiling_dbtp=attempt.limiter_ceiling_dbtp - lower,
+                          overshoot_db=attempt.overshoot_db + lower)
+        else:
+            nxt = replace(nxt, gain_db=attempt.gain_db - lower, overshoot_db=attempt.overshoot_db
+                          + lower, gain_cap_db=(None if attempt.gain_cap_db is None
+                                                else attempt.gain_cap_db - lower))
+    if off is not None and abs(off) > AIM_LU and not (over and attempt.limiter_ceiling_dbtp is None):
+        # secant step on loudness against gain: under heavy limiting a dB of gain raises the
+        # loudness by less than a dB (the slope is kept within 0.2 .. 1)
+        slope = 1.0
+        if attempt.history:
+            g0, l0 = attempt.history[-1]
+            if abs(attempt.gain_db - g0) > 1e-6:
+                slope = min(1.0, max(0.2, (lufs - l0) / (attempt.gain_db - g0)))
+        gain = nxt.gain_db + off / slope
+        if nxt.gain_cap_db is not None:
+            gain = min(gain, nxt.gain_cap_db)
+        if abs(gain - nxt.gain_db) > 0.01:
+            nxt = replace(nxt, gain_db=float(gain))
+    if nxt == attempt:
+        return None, verdict
+    first = attempt.gain_db if attempt.first_gain_db is None else attempt.first_gain_db
+    words = [attempt.base_reason or attempt.reason]
+    if nxt.overshoot_db:
+        words.append(f"{'limiter ceiling' if nxt.limiter_ceiling_dbtp is not None else 'gain'} "
+                     f"lowered {nxt.overshoot_db:.2f} dB for the codec's overshoot")
+    if nxt.limiter_ceiling_dbtp is not None or not nxt.overshoot_db:
+        if abs(nxt.gain_db - first) > 1e-9:
+            words.append(f"gain corrected by {nxt.gain_db - first:+.2f} dB after verification")
+    history = attempt.history + ((attempt.gain_db, lufs),) if lufs is not None else attempt.history
+    nxt = replace(nxt, reason="; ".join(words), history=history, first_gain_db=first,
+                  base_reason=attempt.base_reason or attempt.reason)
+    return nxt, verdict
+
+
+def gain_for(delivery, out_meters, bits, rate_hz):
+    """Gain (dB) of the first write pass and its reason in words (see :func:`first_attempt`)."""
+    attempt = first_attempt(delivery, out_meters, bits, rate_hz)
+    return attempt.gain_db, attempt.reason

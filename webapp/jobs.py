@@ -27,6 +27,7 @@ import os
 
 from . import media, pipeline
 from .delivery import Delivery
+from .dsp.channels import output_channels
 from .dsp.errors import ParameterError
 from .dsp.polyphase import output_length
 from .dsp.rates import SpeedChange, speed_change, true_rate_change, validate_rate
@@ -36,11 +37,15 @@ from .dsp.stages import as_plan, verified_plan
 from .dsp.timebase import TimeBase, timebase_design
 
 __all__ = ["Job", "prepare", "run", "convert_file", "rerun", "Rerun", "RecipeMismatch",
-           "output_name", "BLOCK_FRAMES", "EXIT_RECIPE_MISMATCH"]
+           "output_name", "BLOCK_FRAMES", "EXIT_RECIPE_MISMATCH", "EXIT_DELIVERY_NOT_MET",
+           "refuse_existing"]
 
 BLOCK_FRAMES = pipeline.BLOCK_FRAMES
 #: Exit status of ``rateferry convert --recipe`` when the re-run differs from its recipe.
 EXIT_RECIPE_MISMATCH = 3
+#: Exit status of ``rateferry convert`` when the delivery did not meet its loudness target
+#: within tolerance or its ceiling (the file is kept; the reasons are printed).
+EXIT_DELIVERY_NOT_MET = 5
 # Relative tolerance for recorded floating-point figures (measured ripple, attenuation, loudness):
 # the same design on another machine's BLAS may differ in the last digits; the output bytes
 # themselves are compared exactly (sha256).
@@ -70,9 +75,16 @@ class Job:
         Format, subtype and word length of the file to write.
     frames_out : int
     passes : int
-        1, or 2 with a ceiling or loudness target.
+        Reading passes planned: 1, or 2 with a ceiling or loudness target (the first measures).
+        A write pass that fails its verification is followed by another (see
+        :func:`webapp.delivery.review`); the result reports them.
     block_frames : int
         Frames per block read; the output is bit-identical for a given block size and seed.
+    channels_out : int
+        Channels delivered, after the delivery's channel layout.
+    filter_applied : bool
+        False for a same-rate job that did not ask for the filter: the delivery chain alone
+        (layout, gain, limiter, dither, format) runs, the samples pass through unfiltered.
     time_base : TimeBase or None
         A drift correction: the converter runs at its real ratio, start and length.
     speed : SpeedChange or None
@@ -90,6 +102,8 @@ class Job:
     frames_out: int
     passes: int
     block_frames: int = BLOCK_FRAMES
+    channels_out: int = 0
+    filter_applied: bool = True
     time_base: TimeBase | None = None
     speed: SpeedChange | None = None
 
@@ -115,6 +129,13 @@ def output_name(stem, fs_out, bits, ext):
     word = _WORDS.get(bits or "", "")
     parts = [stem, rate] + ([word] if word else [])
     return "_".join(parts) + ext
+
+
+def refuse_existing(target, *, replace_existing=False):
+    """Raise ParameterError when ``target`` exists and replacing it was not asked for."""
+    if os.path.lexists(os.fspath(target)) and not replace_existing:
+        raise ParameterError(f"the output '{os.fspath(target)}' already exists; it is not "
+                             f"replaced unless asked (--replace)", "output")
 
 
 def _block_frames(value):
@@ -170,7 +191,7 @@ def _route_of(spec, fs_in, fs_out, *, plan, time_base, speed, true_rate_hz):
 
 def prepare(source, target, *, fs_out, spec=None, delivery=None, plan=None,
             block_frames=BLOCK_FRAMES, probe=None, time_base=None, speed=None,
-            true_rate_hz=None):
+            true_rate_hz=None, filter_same_rate=False):
     """Check and decide everything about a conversion; write nothing.
 
     Parameters
@@ -193,6 +214,9 @@ def prepare(source, target, *, fs_out, spec=None, delivery=None, plan=None,
     true_rate_hz : int, Fraction or "N/D", optional
         Take the source at this true rate instead of its header's (a speed change by
         true / header rate).
+    filter_same_rate : bool, optional
+        Run the filter even when the rate does not change. Default False: a same-rate job
+        passes the samples through and runs only the delivery chain.
 
     Returns
     -------
@@ -215,14 +239,24 @@ def prepare(source, target, *, fs_out, spec=None, delivery=None, plan=None,
     if frames_out < 1:
         raise ParameterError(f"the conversion would deliver no frames (the time base starts "
                              f"after the end of the {src.frames}-frame source)", "time_base")
-    out = media.output_plan(target, rate_hz=fs_out, channels=src.channels, bits=delivery.bits,
-                            source_probe=src, frames_estimate=frames_out)
+    if not isinstance(filter_same_rate, bool):
+        raise ParameterError(f"filter_same_rate must be true or false, got {filter_same_rate!r}",
+                             "filter_same_rate")
+    # a time base or a speed change re-times the samples even at the same nominal rate
+    filter_applied = (filter_same_rate or src.rate_hz != fs_out or time_base is not None
+                      or speed is not None)
+    channels_out = output_channels(src.channels, delivery.channel_layout,
+                                   pick=delivery.pick_channel)
+    out = media.output_plan(target, rate_hz=fs_out, channels=channels_out, bits=delivery.bits,
+                            source_probe=src, frames_estimate=frames_out,
+                            mp3_kbps=delivery.mp3_kbps, mp3_mode=delivery.mp3_mode)
     if out.bits not in ("16", "24"):
         delivery = replace(delivery, dither="none")   # float and lossy outputs aren't quantised
     passes = 2 if (delivery.ceiling_dbtp is not None or delivery.loudness_lufs is not None) else 1
     return Job(source=source, target=target, probe=src, spec=plan.spec, fs_out=fs_out,
                delivery=delivery, plan=plan, output=out, frames_out=frames_out, passes=passes,
-               block_frames=_block_frames(block_frames), time_base=time_base, speed=speed)
+               block_frames=_block_frames(block_frames), time_base=time_base, speed=speed,
+               channels_out=channels_out, filter_applied=filter_applied)
 
 
 def run(job, *, progress=None, cancel=None):
@@ -328,7 +362,8 @@ def prepare_rerun(recipe, source, target, *, probe=None, plan=None):
     recipe.check_source(source)
     return prepare(source, target, fs_out=recipe.fs_out, spec=recipe.spec,
                    delivery=recipe.delivery, block_frames=recipe.block_frames, probe=probe,
-                   plan=plan, time_base=recipe.time_base, speed=recipe.speed)
+                   plan=plan, time_base=recipe.time_base, speed=recipe.speed,
+                   filter_same_rate=recipe.filter_applied)
 
 
 def rerun(recipe, source, target, *, progress=None, cancel=None, job=None):

@@ -24,7 +24,7 @@ import os
 import numpy as np
 import soundfile as sf
 
-from webapp import __version__, partials
+from webapp import __version__, partials, riffchunks
 from webapp.dsp.dither import WORD_LENGTHS  # word lengths an output may carry (one list)
 from webapp.dsp.errors import AudioFileError, ParameterError
 from webapp.dsp.rates import validate_rate
@@ -59,6 +59,7 @@ OUTPUT_FORMATS = {
     ".aiff": "AIFF",
     ".w64": "W64",
     ".rf64": "RF64",
+    ".mp3": "MP3",
 }
 
 #: The text tags soundfile exposes, in its order.
@@ -78,6 +79,9 @@ TAG_SUPPORT = {
     "RF64": _WAV_TAGS,
     "FLAC": TAG_NAMES,
     "OGG": TAG_NAMES,
+    # ID3v2 as written by libsndfile 1.2.2 (measured): no copyright or license; "software"
+    # is the encoder's own text
+    "MP3": ("title", "artist", "comment", "date", "album", "tracknumber", "genre"),
     "AIFF": ("title", "copyright", "software", "artist", "comment"),
     "W64": (),
 }
@@ -115,7 +119,15 @@ FLAC_MAX_RATE_HZ = 655350
 #: Highest rate the Vorbis encoder accepts here. Measured with libsndfile 1.2.2/libvorbis:
 #: 200000 Hz encodes; 200001 Hz and above crash the process, so the plan must refuse them.
 VORBIS_MAX_RATE_HZ = 200000
-_MAX_CHANNELS = {"FLAC": 8, "OGG": 255}  # FLAC frame header; Ogg channel mapping (measured)
+#: Rates an MPEG Layer III stream may carry: MPEG-1 (32, 44.1, 48 kHz), MPEG-2 (16, 22.05,
+#: 24 kHz) and MPEG-2.5 (8, 11.025, 12 kHz) (ISO/IEC 11172-3 and 13818-3; from memory;
+#: libsndfile 1.2.2 with LAME takes these).
+MP3_RATES_HZ = (8000, 11025, 12000, 16000, 22050, 24000, 32000, 44100, 48000)
+#: Highest MP3 bit rate, kbit/s, by rate: MPEG-1 320, MPEG-2 160, MPEG-2.5 64 (the same
+#: standards; libsndfile's encoder maps its compression level onto these ranges).
+_MP3_KBPS = ((32000, 32, 320), (16000, 8, 160), (0, 8, 64))
+_MP3_MODES = {"constant": "CONSTANT", "average": "AVERAGE", "variable": "VARIABLE"}
+_MAX_CHANNELS = {"FLAC": 8, "OGG": 255, "MP3": 2}  # FLAC frame header; Ogg channel mapping (measured)
 _SF_MAX_CHANNELS = 1024  # libsndfile's own ceiling (measured: 1025 refused for WAV/AIFF/W64/RF64)
 # RIFF/WAVE chunk sizes are unsigned 32-bit (Microsoft RIFF specification, 1991; from memory);
 # keep 1 MiB for the header and the INFO chunk.
@@ -457,6 +469,12 @@ class OutputPlan:
     channels : int
     bits : str or None
         One of :data:`WORD_LENGTHS`, or None for lossy formats.
+    compression_level : float or None
+        libsndfile's compression level (0 best .. 1 smallest) for MP3; None otherwise.
+    bitrate_mode : str or None
+        "CONSTANT", "AVERAGE" or "VARIABLE" for MP3; None otherwise.
+    kbps : int or None
+        The MP3 bit rate the compression level stands for.
     """
 
     format: str
@@ -464,6 +482,9 @@ class OutputPlan:
     rate_hz: int
     channels: int
     bits: str | None
+    compression_level: float | None = None
+    bitrate_mode: str | None = None
+    kbps: int | None = None
 
     @property
     def is_lossy(self):
@@ -485,7 +506,33 @@ def _normalise_bits(bits):
         f"got {bits!r}", "bits")
 
 
-def output_plan(path, *, rate_hz, channels, bits=None, source_probe=None, frames_estimate=None):
+def mp3_plan(rate, channels, kbps, mode):
+    """The MP3 :class:`OutputPlan`: the bit rate turned into libsndfile's compression level.
+
+    libsndfile 1.2.2 (mpeg_l3_encoder_set_quality) maps a compression level c in 0..1 onto
+    ``bitrate = int(high - c (high - low))`` kbit/s for constant and average bit rate (MPEG-1
+    32..320, MPEG-2 8..160, MPEG-2.5 8..64) and onto LAME's VBR quality ``10 c`` for variable
+    bit rate; half a kbit/s is added before the truncation so the bit rate asked for is the one
+    encoded. Variable bit rate uses the same level (a higher rate gives a better quality).
+    """
+    if rate not in MP3_RATES_HZ:
+        raise ParameterError(f"MP3 carries only {', '.join(str(r) for r in MP3_RATES_HZ)} Hz; got "
+                             f"{rate} Hz", "rate_hz")
+    low, high = next((lo, hi) for floor, lo, hi in _MP3_KBPS if rate >= floor)
+    kbps = 128 if kbps is None else kbps
+    if isinstance(kbps, bool) or not isinstance(kbps, int) or not low <= kbps <= high:
+        raise ParameterError(f"mp3_kbps must be a whole number from {low} to {high} kbit/s at "
+                             f"{rate} Hz, got {kbps!r}", "mp3_kbps")
+    if mode not in _MP3_MODES:
+        raise ParameterError(f"mp3_mode must be one of {', '.join(_MP3_MODES)}, got {mode!r}",
+                             "mp3_mode")
+    level = min(1.0, max(0.0, (high - kbps - 0.5) / (high - low)))
+    return OutputPlan("MP3", "MPEG_LAYER_III", rate, channels, None, compression_level=level,
+                      bitrate_mode=_MP3_MODES[mode], kbps=kbps)
+
+
+def output_plan(path, *, rate_hz, channels, bits=None, source_probe=None, frames_estimate=None,
+                mp3_kbps=None, mp3_mode="constant"):
     """Decide and check the format of an output file before any work starts.
 
     Parameters
@@ -547,6 +594,14 @@ def output_plan(path, *, rate_hz, channels, bits=None, source_probe=None, frames
         raise ParameterError(
             f"source_probe must be a Probe, got {type(source_probe).__name__}", "source_probe")
 
+    if fmt == "MP3":
+        if bits is not None:
+            raise ParameterError(f"{ext} (MPEG Layer III) is lossy and has no word length; leave "
+                                 f"bits unset, got {bits}", "bits")
+        return mp3_plan(rate, channels, mp3_kbps, mp3_mode)
+    if mp3_kbps is not None:
+        raise ParameterError(f"mp3_kbps applies to .mp3 outputs only, got {mp3_kbps!r} for {ext}",
+                             "mp3_kbps")
     if fmt == "OGG":
         codec = "OPUS" if ext == ".opus" else "VORBIS"
         label = "Opus" if codec == "OPUS" else "Vorbis"
@@ -645,6 +700,14 @@ class AtomicWriter:
         Text appended to the comment tag (joined with "; "), e.g. :func:`converted_comment`.
     source : str or os.PathLike, optional
         The source file; when given, :func:`refuse_same_file` runs at construction.
+    chunks : list of (bytes, bytes), optional
+        RIFF chunks (``bext``, ``iXML``, ``cue ``, ``LIST``/``adtl``, from
+        :func:`webapp.riffchunks.carried_chunks`) added to a WAV output before it is moved onto
+        the target (:func:`webapp.riffchunks.insert_chunks`).
+    check : callable(path), optional
+        Called with the finished partial file (chunks added) before it is moved onto the
+        target, e.g. to decode and measure a lossy output; when it raises, the partial file is
+        removed, the target is left as it was, and the exception goes to the caller.
 
     Notes
     -----
@@ -670,7 +733,8 @@ class AtomicWriter:
     480
     """
 
-    def __init__(self, path, plan, *, tags=None, add_comment=None, source=None):
+    def __init__(self, path, plan, *, tags=None, add_comment=None, source=None, chunks=(),
+                 check=None):
         if not isinstance(plan, OutputPlan):
             raise ParameterError(f"plan must be an OutputPlan, got {type(plan).__name__}", "plan")
         self.path = os.fspath(path)
@@ -688,6 +752,10 @@ class AtomicWriter:
         self._sf = None
         self._done = False
         self._bytes_per_frame = plan.channels * _WORD_BYTES.get(plan.bits or "16", 2)
+        if chunks and plan.format != "WAV":
+            raise ParameterError(f"RIFF chunks go into WAV outputs only, got {plan.format}", "chunks")
+        self._chunks = list(chunks)
+        self._check = check
 
     @staticmethod
     def _prepare_tags(tags, add_comment):
@@ -737,9 +805,12 @@ class AtomicWriter:
         self._fd = self._partial.fd
         self.temp_path = self._partial.path
         try:
+            codec = {} if self.plan.compression_level is None else dict(
+                compression_level=self.plan.compression_level,
+                bitrate_mode=self.plan.bitrate_mode)
             self._sf = sf.SoundFile(self._fd, mode="w", samplerate=self.plan.rate_hz,
                                     channels=self.plan.channels, subtype=self.plan.subtype,
-                                    format=self.plan.format, closefd=False)
+                                    format=self.plan.format, closefd=False, **codec)
             for key, value in self._tags.items():
                 setattr(self._sf, key, value)  # before audio: FLAC/Ogg write tags up front
         except Exception as exc:
@@ -800,6 +871,20 @@ class AtomicWriter:
             os.fsync(self._fd)
             os.close(self._fd)
             self._fd = self._partial.fd = None
+            if self._chunks:
+                os.replace(riffchunks.insert_chunks(self._partial.path, self._chunks),
+                           self._partial.path)
+        except Exception as exc:
+            self.abort()
+            raise AudioFileError(f"cannot finish '{name}': {_write_failure(exc, self.path)}",
+                                 "output") from None
+        if self._check is not None:
+            try:
+                self._check(self._partial.path)
+            except BaseException:
+                self.abort()
+                raise
+        try:
             self._partial.finish()
             self.temp_path = None
         except Exception as exc:

@@ -1,15 +1,22 @@
 """The streaming execution of a prepared job (:mod:`webapp.jobs` prepares it).
 
-source file -> probe -> route and design (verified against the mask) -> streaming converter
--> gain (headroom / loudness policy) -> word length and dither -> atomic output file,
-with BS.1770 loudness and true peak measured on the source and on the delivered output.
+source file -> channel layout -> streaming converter (none for a same-rate job without a
+filter) -> gain -> look-ahead true-peak limiter -> word length and dither -> atomic output file
+(RIFF chunks carried into WAV), with BS.1770 loudness and true peak measured on the source and
+on what is delivered.
 
-When a true-peak ceiling or a loudness target is set, the output is measured in a first pass
-at unity gain; conversion is linear, so the gain that satisfies both bounds follows exactly and
-the second pass writes the file. Memory stays flat: everything streams in blocks.
+When a true-peak ceiling or a loudness target is set, the delivered layout is measured in a
+first pass at unity gain and :func:`webapp.delivery.first_attempt` sets the gain (and the
+limiter's ceiling). Every written pass is verified before its file is moved onto the target:
+the meters of the written samples (PCM) or of the decoded file (MP3, Vorbis, Opus) go to
+:func:`webapp.delivery.review`, which may ask for another pass (a gain correction, a lower
+limiter ceiling for a codec's overshoot); the result reports the passes, the limiter's largest
+gain reduction and time limiting, and whether the delivery met its promise. Memory stays flat:
+everything streams in blocks. Every decision is made by :mod:`webapp.jobs` and
+:mod:`webapp.delivery`; this module executes them.
 """
 
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 import math
 import os
 import queue
@@ -20,9 +27,11 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from . import __version__
-from . import media, riff
+from . import media, riff, riffchunks
+from .dsp.channels import apply_layout
 from .dsp.dither import Quantizer
-from .delivery import Delivery, gain_for
+from .dsp.limiter import TruePeakLimiter
+from .delivery import Attempt, Delivery, first_attempt, review
 from .dsp.errors import ParameterError, RateferryError
 from .dsp.loudness import LoudnessMeter, TruePeakMeter
 from .dsp.polyphase import make_converter
@@ -70,6 +79,14 @@ class ConversionResult:
     warnings: tuple = ()                # e.g. a source shorter than its header declares
     time_base: object = None            # the job's TimeBase (a drift correction) or None
     speed: object = None                # the job's SpeedChange or None
+    channels_out: int | None = None     # after the channel layout (None: as the source)
+    filter_applied: bool = True         # False: same rate in and out, no filter asked for
+    delivery_report: dict = field(default_factory=dict)   # verification, limiter, passes
+
+    @property
+    def delivery_met(self):
+        """True / False when the delivery promised a ceiling or a loudness; None otherwise."""
+        return (self.delivery_report or {}).get("met")
 
     def figures(self):
         d = self.plan.figures()
@@ -83,6 +100,8 @@ class ConversionResult:
             clipped_samples=self.clipped_samples, delivery=self.delivery.to_dict(),
             source_sha256=self.source_sha256, output_sha256=self.output_sha256,
             version=self.version, warnings=list(self.warnings),
+            channels_out=self.channels_out or self.channels, filter_applied=self.filter_applied,
+            delivery_report=dict(self.delivery_report),
         )
         if self.recipe_check is not None:
             d["recipe_check"] = dict(self.recipe_check)
@@ -284,96 +303,243 @@ def execute(job, *, progress=None, cancel=None, tags_comment=True):
         return _execute(job, progress=progress, cancel=cancel, tags_comment=tags_comment)
 
 
-def _execute(job, *, progress, cancel, tags_comment):
-    t0 = time.perf_counter()
-    src, source, target = job.probe, job.source, job.target
-    fs_in, fs_out, delivery, design = job.fs_in, job.fs_out, job.delivery, job.plan
-    out_plan, blocksize, passes = job.output, job.block_frames, job.passes
-    media.refuse_same_file(source, target)
-    dtype = design.spec.arithmetic
-    needs_first_pass = passes == 2
-    total_work = src.frames * passes
-    done = 0
+class _PassThrough:
+    """The converter of a same-rate job without a filter: the samples as they are."""
 
-    def report(frames):
-        if progress is not None:
-            progress(min(1.0, frames / max(total_work, 1)), frames, total_work)
+    def __init__(self, channels):
+        self.channels = channels
+        self.frames_out = 0
 
-    source_meters = Meters(fs_in, src.channels)
-    gain_db, gain_reason = 0.0, "report only"
-    if needs_first_pass:
-        conv = make_converter(design, channels=src.channels, dtype=dtype,
-                              time_base=job.time_base)
-        first = Meters(fs_out, src.channels)
-        with _Stages() as stages:
-            source_stage = stages.add(source_meters.process, "rateferry-source-meters")
-            first_stage = stages.add(first.process, "rateferry-output-meters")
-            for block in _prefetch(media.read_blocks(source, blocksize=blocksize)):
-                _check_cancel(cancel)
-                source_stage.submit(block)
-                first_stage.submit(conv.process(block))
-                done += block.shape[0]
-                report(done)
-            first_stage.submit(conv.flush())
-        gain_db, gain_reason = gain_for(delivery, first.result(), out_plan.bits, fs_out)
-    gain = 10 ** (gain_db / 20.0)
+    def process(self, block):
+        self.frames_out += block.shape[0]
+        return block
 
+    def flush(self):
+        return np.zeros((0, self.channels))
+
+
+class _Again(Exception):
+    """A written pass failed its verification; ``attempt`` is the next pass's settings."""
+
+    def __init__(self, attempt):
+        super().__init__("another write pass")
+        self.attempt = attempt
+
+
+def _converter(job):
+    if not job.filter_applied:
+        return _PassThrough(job.channels_out)
+    return make_converter(job.plan, channels=job.channels_out, dtype=job.plan.spec.arithmetic,
+                          time_base=job.time_base)
+
+
+def _layout(job):
+    """The channel layout as a function of a source block (None: kept as it is)."""
+    d = job.delivery
+    if d.channel_layout == "keep":
+        return None
+    return lambda block: apply_layout(block, d.channel_layout, law=d.mono_law, pick=d.pick_channel)
+
+
+class _Progress:
+    """Frames done against frames to do; a further write pass adds a source's worth."""
+
+    def __init__(self, job, progress):
+        self.total, self.done, self._fn = job.frames_total, 0, progress
+
+    def add(self, frames):
+        self.done += frames
+        self.report()
+
+    def more(self, frames):
+        self.total += frames
+
+    def report(self):
+        if self._fn is not None:
+            self._fn(min(1.0, self.done / max(self.total, 1)), self.done, self.total)
+
+
+def _source_blocks(job, layout, cancel, progress, source_stage=None):
+    """The source in blocks (the layout applied), with progress and cancellation."""
+    for block in _prefetch(media.read_blocks(job.source, blocksize=job.block_frames)):
+        _check_cancel(cancel)
+        if source_stage is not None:
+            source_stage.submit(block)
+        progress.add(block.shape[0])
+        yield block if layout is None else layout(block)
+
+
+def _measure_pass(job, source_meters, cancel, progress):
+    """First pass: the delivered layout's converted signal at unity gain, measured."""
+    conv, first = _converter(job), Meters(job.fs_out, job.channels_out)
+    with _Stages() as stages:
+        source_stage = stages.add(source_meters.process, "rateferry-source-meters")
+        first_stage = stages.add(first.process, "rateferry-output-meters")
+        for block in _source_blocks(job, _layout(job), cancel, progress, source_stage):
+            first_stage.submit(conv.process(block))
+        first_stage.submit(conv.flush())
+    return first.result()
+
+
+def _decoded_meters(path, rate, channels):
+    meters = Meters(rate, channels)
+    for block in media.read_blocks(path, blocksize=BLOCK_FRAMES):
+        meters.process(block)
+    return meters.result()
+
+
+def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunks, review):
+    """One write pass: convert, gain, limit, quantise, write; ``review`` checks the finished
+    file before it is moved onto the target (raising :class:`_Again` for another pass)."""
+    out_plan, channels = job.output, job.channels_out
+    gain = 10 ** (attempt.gain_db / 20.0)
     quant = None
     if out_plan.bits in ("16", "24"):
-        quant = Quantizer(bits=out_plan.bits, dither=delivery.dither, seed=delivery.dither_seed,
-                          channels=src.channels, rate_hz=fs_out)
+        quant = Quantizer(bits=out_plan.bits, dither=job.delivery.dither,
+                          seed=job.delivery.dither_seed, channels=channels, rate_hz=job.fs_out)
     scale = {"16": 2.0**15, "24": 2.0**31}.get(out_plan.bits)
-    out_meters = Meters(fs_out, src.channels)
-    conv = make_converter(design, channels=src.channels, dtype=dtype, time_base=job.time_base)
-    comment = media.converted_comment(fs_in, fs_out) if tags_comment else None
+    limiter = None
+    if attempt.limiter_ceiling_dbtp is not None:
+        limiter = TruePeakLimiter(rate_hz=job.fs_out, channels=channels,
+                                  ceiling_dbtp=max(-60.0, attempt.limiter_ceiling_dbtp))
+    out_meters = Meters(job.fs_out, channels)
+    conv = _converter(job)
 
     def quantize(y):
         codes = quant.process(y)
         write_stage.submit(codes)
         meter_stage.submit(codes.astype(np.float64) / scale)
 
-    def deliver(y):
+    def emit(y):
         if y.shape[0] == 0:
             return
-        if gain != 1.0:
-            y = y * gain
         if quant is not None:
             quant_stage.submit(y)
         else:
             write_stage.submit(y)
             meter_stage.submit(y)
 
-    with media.AtomicWriter(target, out_plan, tags=src.tags, add_comment=comment,
-                            source=source) as writer:
+    def limit(y):
+        emit(limiter.flush() if y is None else limiter.process(y))
+
+    def deliver(y):
+        if y.shape[0] == 0:
+            return
+        if gain != 1.0:
+            y = y * gain
+        if limit_stage is not None:
+            limit_stage.submit(y)
+        else:
+            emit(y)
+
+    def check(path):
+        meters = out_meters.result()
+        if out_plan.is_lossy:
+            meters = _decoded_meters(path, job.fs_out, channels)
+        review(meters, out_meters.result(), limiter)
+
+    writer = media.AtomicWriter(job.target, out_plan, tags=job.probe.tags, add_comment=comment,
+                                source=job.source, chunks=chunks, check=check)
+    writer.open()
+    try:
         with _Stages() as stages:
             write_stage = stages.add(writer.write, "rateferry-writer")
             meter_stage = stages.add(out_meters.process, "rateferry-output-meters")
-            source_stage = None if needs_first_pass else stages.add(source_meters.process,
-                                                                    "rateferry-source-meters")
             quant_stage = stages.add(quantize, "rateferry-quantizer") if quant else None
+            limit_stage = stages.add(limit, "rateferry-limiter") if limiter else None
+            source_stage = None if source_meters is None else stages.add(
+                source_meters.process, "rateferry-source-meters")
             frames_read = 0
-            for block in _prefetch(media.read_blocks(source, blocksize=blocksize)):
-                _check_cancel(cancel)
-                if source_stage is not None:
-                    source_stage.submit(block)
+            for block in _source_blocks(job, _layout(job), cancel, progress, source_stage):
                 deliver(conv.process(block))
-                done += block.shape[0]
                 frames_read += block.shape[0]
-                report(done)
             _check_cancel(cancel)
             deliver(conv.flush())
-    report(total_work)
-    warnings = short_source_warnings(source, frames_read,
-                                     max(src.frames, riff.declared_frames(source) or 0))
-    out_sha = media.sha256_file(target)
+            if limit_stage is not None:
+                limit_stage.submit(None)
+    except BaseException:
+        writer.abort()
+        raise
+    writer.commit()
+    return dict(frames_read=frames_read, frames_out=conv.frames_out, quant=quant,
+                limiter=limiter, out_meters=out_meters)
+
+
+def _execute(job, *, progress, cancel, tags_comment):
+    t0 = time.perf_counter()
+    src, source, target = job.probe, job.source, job.target
+    fs_in, fs_out, delivery, out_plan = job.fs_in, job.fs_out, job.delivery, job.output
+    media.refuse_same_file(source, target)
+    tracker = _Progress(job, progress)
+    source_meters = Meters(fs_in, src.channels)
+    if job.passes == 2:
+        attempt = first_attempt(delivery, _measure_pass(job, source_meters, cancel, tracker),
+                                out_plan.bits, fs_out)
+        source_stage = None
+    else:
+        attempt = Attempt(gain_db=0.0, reason="report only")
+        source_stage = source_meters
+    comment = media.converted_comment(fs_in, fs_out) if tags_comment else None
+    chunks, warnings = _carried_chunks(job)
+    verdicts, done = [], 0
+
+    def review_pass(meters, written_meters, limiter):
+        verdicts.clear()
+        nxt, verdict = review(delivery, attempt, meters, passes_done=done + 1,
+                              lossy=out_plan.is_lossy)
+        verdict["meters"], verdict["written_meters"] = meters, written_meters
+        verdict["limiter"] = None if limiter is None else dict(
+            ceiling_dbtp=limiter.ceiling_dbtp, **asdict(limiter.result()))
+        verdicts.append(verdict)
+        if nxt is not None:
+            raise _Again(nxt)
+
+    while True:
+        try:
+            written = _write_pass(job, attempt, source_meters=source_stage, cancel=cancel,
+                                  progress=tracker, comment=comment, chunks=chunks,
+                                  review=review_pass)
+            break
+        except _Again as again:
+            attempt, done, source_stage = again.attempt, done + 1, None
+            tracker.more(src.frames)
+    tracker.report()
+    verdict = verdicts[0]
+    warnings += short_source_warnings(source, written["frames_read"],
+                                      max(src.frames, riff.declared_frames(source) or 0))
+    quant = written["quant"]
+    report = dict(met=verdict["met"], notes=verdict["notes"],
+                  loudness_tolerance_lu=verdict["loudness_tolerance_lu"],
+                  write_passes=verdict["write_passes"], verified_on=verdict["verified_on"],
+                  limiter=verdict["limiter"], filter_applied=job.filter_applied,
+                  channel_layout=delivery.channel_layout, carried_chunks=[
+                      c[0].decode("latin-1").strip() for c in chunks])
+    if out_plan.is_lossy:
+        report["decoded"] = verdict["meters"]
+    if out_plan.kbps is not None:
+        report["mp3_kbps"] = out_plan.kbps
     return ConversionResult(
         source_path=os.fspath(source), output_path=os.fspath(target), fs_in=fs_in,
-        fs_out=fs_out, channels=src.channels, frames_in=src.frames, frames_out=conv.frames_out,
-        seconds=time.perf_counter() - t0, spec=design.spec,
-        delivery=delivery, plan=design, source_probe=src, output_format=out_plan.format,
-        output_subtype=out_plan.subtype, bits=out_plan.bits, gain_db=gain_db,
-        gain_reason=gain_reason, source_meters=source_meters.result(),
-        output_meters=out_meters.result(),
+        fs_out=fs_out, channels=src.channels, frames_in=src.frames,
+        frames_out=written["frames_out"], seconds=time.perf_counter() - t0, spec=job.plan.spec,
+        delivery=delivery, plan=job.plan, source_probe=src, output_format=out_plan.format,
+        output_subtype=out_plan.subtype, bits=out_plan.bits, gain_db=attempt.gain_db,
+        gain_reason=attempt.reason, source_meters=source_meters.result(),
+        output_meters=verdict["written_meters"],
         clipped_samples=int(quant.clipped_samples) if quant is not None else 0,
-        passes=passes, block_frames=int(blocksize), source_sha256=media.sha256_file(source),
-        output_sha256=out_sha, warnings=warnings, time_base=job.time_base, speed=job.speed)
+        passes=job.passes, block_frames=int(job.block_frames),
+        source_sha256=media.sha256_file(source), output_sha256=media.sha256_file(target),
+        warnings=warnings, channels_out=job.channels_out, filter_applied=job.filter_applied,
+        delivery_report=report, time_base=job.time_base, speed=job.speed)
+
+
+def _carried_chunks(job):
+    """(chunks, warnings): the source's bext / iXML / cue chunks, rescaled, for a WAV output."""
+    chunks = riffchunks.carried_chunks(job.source, job.fs_in, job.fs_out)
+    retimed = job.time_base is not None or job.speed is not None
+    if not chunks or (job.output.format == "WAV" and not retimed):
+        return chunks, ()
+    names = ", ".join(sorted({c[0].decode("latin-1").strip() for c in chunks}))
+    why = ("a drift correction or speed change (their positions are not rescaled yet)" if retimed
+           else f"a {job.output.format} output (WAV outputs carry them)")
+    return [], (f"the source's {names} chunks are not carried into {why}",)

@@ -9,9 +9,11 @@ Conventions
 * The format is described by ``webapp/schemas/recipe.schema.json`` (JSON Schema draft 2020-12)
   and validated with the ``jsonschema`` library against that very file, so the documented schema
   and the reader can't drift apart. Errors name the field (dotted path) and the rule.
-* Versions: ``version`` is a whole number, currently :data:`RECIPE_VERSION` (1, the first).
-  Newer versions are refused with a message naming the version; older ones are upgraded step by
-  step through ``_UPGRADES`` before validation (none exist yet). A JSON object without
+* Versions: ``version`` is a whole number, currently :data:`RECIPE_VERSION` (2: every
+  delivery field, ``filter_applied`` and ``write_passes``). Newer versions are refused with a
+  message naming the version; older ones are upgraded step by step through ``_UPGRADES``
+  before validation (1 -> 2 fills the defaults version 1 applied, so its re-runs stay
+  bit-exact). A JSON object without
   ``"schema": "rateferry-recipe"`` or without ``version`` (a draft from before version 1) is
   refused: there is no released format to upgrade it from, and guessing could re-run a
   different filter.
@@ -39,6 +41,7 @@ from . import pipeline
 from .delivery import Delivery
 from .jsontools import jsonable, loads_checked
 from .oserrors import os_error_text
+from .dsp.channels import output_channels
 from .dsp.errors import ParameterError
 from .dsp.rates import SpeedChange, speed_change
 from .dsp.rates import route as make_route
@@ -50,16 +53,31 @@ __all__ = ["RECIPE_SCHEMA", "RECIPE_VERSION", "SCHEMA_PATH", "RECIPE_MAX_BYTES",
            "validate_recipe", "recipe_file_name"]
 
 RECIPE_SCHEMA = "rateferry-recipe"
-RECIPE_VERSION = 1
-# The Delivery fields recipe version 1 records. The fields added for limiter, channel layout,
-# MP3 and loudness tolerance are not applied by the pipeline yet; the recipe version grows when
-# they are.
+RECIPE_VERSION = 2
+# The Delivery fields recipe version 1 recorded; version 2 records every Delivery field (the
+# limiter, loudness tolerance, channel layout and MP3 fields are applied since), whether the
+# filter ran (a same-rate job runs none unless asked) and the write passes.
 RECIPE_V1_DELIVERY = ("bits", "dither", "dither_seed", "ceiling_dbtp", "loudness_lufs")
 
 
 def recipe_delivery(delivery):
-    """The part of ``delivery.to_dict()`` this recipe version records."""
-    return {k: v for k, v in delivery.to_dict().items() if k in RECIPE_V1_DELIVERY}
+    """The part of ``delivery.to_dict()`` this recipe version records: all of it."""
+    return delivery.to_dict()
+
+
+def _upgrade_1_to_2(data):
+    """Version 1 -> 2: the delivery fields version 1 did not record take their defaults (which
+    is what version 1 applied: no limiter, the source's channels, no MP3), the filter ran
+    (version 1 filtered same-rate jobs too) and one write pass wrote the file."""
+    out = copy.deepcopy(data)
+    defaults = Delivery().to_dict()
+    if isinstance(out.get("delivery"), dict):
+        out["delivery"] = {**{k: v for k, v in defaults.items() if k not in RECIPE_V1_DELIVERY},
+                           **out["delivery"]}
+    out["version"] = 2
+    out.setdefault("filter_applied", True)
+    out.setdefault("write_passes", 1)
+    return out
 SCHEMA_PATH = os.path.join(os.path.dirname(os.path.abspath(__file__)), "schemas",
                            "recipe.schema.json")
 #: A recipe is a few kilobytes; anything far larger is not one (and is not read into memory).
@@ -166,7 +184,7 @@ def _schema_error(error):
 # recipes
 
 # version -> function turning a recipe of that version into one of version + 1
-_UPGRADES = {}
+_UPGRADES = {1: _upgrade_1_to_2}
 
 
 @dataclass(frozen=True)
@@ -203,6 +221,7 @@ class Recipe:
     data: dict = field(repr=False)
     time_base: TimeBase | None = None
     speed: SpeedChange | None = None
+    filter_applied: bool = True
 
     def to_dict(self):
         """A deep copy of the recipe as plain JSON types."""
@@ -328,7 +347,7 @@ def recipe_from_result(result, *, block_frames=None, created=None, source_name=N
             "subtype": result.output_subtype,
             "bits": result.bits,
             "rate_hz": int(result.fs_out),
-            "channels": int(result.channels),
+            "channels": int(result.channels_out or result.channels),
             "frames": int(result.frames_out),
         },
         "route": {"fs_in": int(result.fs_in), "fs_out": int(result.fs_out),
@@ -340,6 +359,8 @@ def recipe_from_result(result, *, block_frames=None, created=None, source_name=N
         "gain_reason": result.gain_reason,
         "block_frames": _block_frames_of(result, block_frames),
         "passes": int(result.passes),
+        "write_passes": int((result.delivery_report or {}).get("write_passes", 1)),
+        "filter_applied": bool(result.filter_applied),
     }
     if time_base is not None:
         data["time_base"] = jsonable(time_base.to_dict())
@@ -519,7 +540,6 @@ def load_recipe(source):
             f"{expected.fs_in} -> {expected.fs_out} Hz, got {rt['up']}/{rt['down']}", "route")
     checks = [("source.rate_hz", data["source"]["rate_hz"], rt["fs_in"]),
               ("output.rate_hz", data["output"]["rate_hz"], rt["fs_out"]),
-              ("output.channels", data["output"]["channels"], data["source"]["channels"]),
               ("design.fs_in", data["design"]["fs_in"], design_rates[0]),
               ("design.fs_out", data["design"]["fs_out"], design_rates[1])]
     for what, part in (("time_base", time_base), ("speed", speed)):
@@ -539,7 +559,17 @@ def load_recipe(source):
         delivery = Delivery.from_dict(d)
     except ParameterError as exc:
         raise ParameterError(f"recipe delivery: {exc.message}", f"delivery.{exc.field}") from None
-    return Recipe(spec=spec, fs_in=int(rt["fs_in"]), fs_out=int(rt["fs_out"]),
+    try:
+        channels = output_channels(data["source"]["channels"], delivery.channel_layout,
+                                   pick=delivery.pick_channel)
+    except ParameterError as exc:
+        raise ParameterError(f"recipe delivery: {exc.message}", f"delivery.{exc.field}") from None
+    if data["output"]["channels"] != channels:
+        raise ParameterError(f"recipe field output.channels must equal {channels} (the source's "
+                             f"{data['source']['channels']} in the {delivery.channel_layout!r} "
+                             f"layout), got {data['output']['channels']}", "output.channels")
+    return Recipe(filter_applied=bool(data["filter_applied"]),
+                  spec=spec, fs_in=int(rt["fs_in"]), fs_out=int(rt["fs_out"]),
                   delivery=delivery, block_frames=int(data["block_frames"]),
                   source_name=data["source"]["name"], source_sha256=data["source"]["sha256"],
                   output_sha256=data["output"]["sha256"], version=written, data=data,

@@ -63,6 +63,20 @@ def _design(plan_figures):
     return d
 
 
+def _verification(result):
+    """The delivery's verification: met (None when nothing was promised), the notes, the write
+    passes, what was measured (the decoded file for lossy codecs) and the limiter's work."""
+    r = result.delivery_report or {}
+    verified = r.get("decoded") or {k: v for k, v in result.output_meters.items()
+                                    if k in ("integrated_lufs", "true_peak_dbtp")}
+    return dict(met=r.get("met"), notes=list(r.get("notes") or ()),
+                write_passes=r.get("write_passes", 1),
+                verified_on=r.get("verified_on", "the written samples"),
+                verified={k: verified.get(k) for k in ("integrated_lufs", "true_peak_dbtp")},
+                limiter=r.get("limiter"), filter_applied=result.filter_applied,
+                carried_chunks=list(r.get("carried_chunks") or ()))
+
+
 def convert_report(result, *, rerun=None):
     """The nested, rounded report of a :class:`webapp.pipeline.ConversionResult`.
 
@@ -83,12 +97,12 @@ def convert_report(result, *, rerun=None):
                     duration_s=duration, sha256=result.source_sha256, **src_meters),
         design=_design(plan),
         output=dict(path=os.fspath(result.output_path), rate_hz=result.fs_out,
-                    channels=result.channels, frames=result.frames_out,
+                    channels=result.channels_out or result.channels, frames=result.frames_out,
                     duration_s=result.frames_out / result.fs_out, format=result.output_format,
                     subtype=result.output_subtype, sha256=result.output_sha256,
                     clipped_samples=int(result.clipped_samples), **out_meters),
         delivery=dict(delivery, gain_db=result.gain_db, gain_reason=result.gain_reason,
-                      passes=result.passes),
+                      passes=result.passes, **_verification(result)),
         timing=dict(seconds=seconds, design_ms=plan.get("design_ms"),
                     realtime_factor=(duration / seconds) if seconds > 0 else None,
                     block_frames=result.block_frames),

@@ -30,6 +30,7 @@ import re
 
 import numpy as np
 
+from . import sheet_delivery
 from .jsontools import jsonable
 from .recipe import recipe_file_name, recipe_from_result, write_json_atomic
 from . import sheet_plots
@@ -449,7 +450,12 @@ def _spectra_html(spectra, note):
     return "".join(h)
 
 
-def _delivery_html(result, output_name):
+def _escaped(rows):
+    """Rows whose shown text (the fifth item) is escaped, as :func:`_cell` expects."""
+    return [row[:4] + (_esc(str(row[4])),) if len(row) > 4 else row for row in rows]
+
+
+def _delivery_html(result, output_name, profile=None):
     delivery = result.delivery
     dith = delivery.dither if result.bits in ("16", "24") else "none (float or lossy output)"
     chain = _table([
@@ -463,14 +469,19 @@ def _delivery_html(result, output_name):
         ("gain applied", "gain_db", result.gain_db, "dB"),
         ("why", "gain_reason", result.gain_reason),
         ("passes", "passes", result.passes),
-    ])
+    ] + _escaped(sheet_delivery.chain_rows(result)))
     measured = _table([("sample rate", "fs_out", result.fs_out, "Hz"),
                        ("frames", "frames_out", result.frames_out)]
                       + _meters_rows("output", result.output_meters)
                       + [("clipped samples", "clipped_samples", result.clipped_samples),
-                         ("sha256", "output_sha256", result.output_sha256)])
+                         ("sha256", "output_sha256", result.output_sha256)]
+                      + _escaped(sheet_delivery.verification_rows(result)))
+    sources = ("" if profile is None else
+               '<h3>Destination and the source of each number</h3>'
+               + _table(_escaped(sheet_delivery.profile_rows(profile, result))))
     return ('<section class="sheet-section" id="delivery"><h2>Delivery</h2>'
-            f'<div class="columns"><div>{chain}</div><div>{measured}</div></div></section>')
+            f'<div class="columns"><div>{chain}</div><div>{measured}</div></div>{sources}'
+            '</section>')
 
 
 def _recipe_html(recipe, source_name, output_name):
@@ -484,7 +495,8 @@ def _recipe_html(recipe, source_name, output_name):
 
 
 def sheet_html(result, *, title=None, author=None, note=None, blind=None, audit="auto",
-               block_frames=None, created=None, source_name=None, output_name=None):
+               block_frames=None, created=None, source_name=None, output_name=None,
+               profile=None):
     """The design sheet of ``result`` as one self-contained HTML document (str).
 
     Parameters
@@ -495,6 +507,8 @@ def sheet_html(result, *, title=None, author=None, note=None, blind=None, audit=
     blind : dict, optional
         Blind-trial results (``trials``, ``correct``, ``p_value``, ...); None leaves the
         section out. A missing ``p_value`` is computed (one-sided binomial tail).
+    profile : webapp.profiles.Profile, optional
+        The destination chosen: its numbers are listed with their sources.
     audit : "auto", AuditResult, dict or None, optional
         "auto" (the default) runs :func:`webapp.dsp.audit.audit` on the design; an
         AuditResult or its figures are shown as given; None skips the audit.
@@ -545,7 +559,7 @@ def sheet_html(result, *, title=None, author=None, note=None, blind=None, audit=
         _route_html(result, figs),
         _design_html(result, figs),
         _spectra_html(spectra, spectra_note),
-        _delivery_html(result, output_name),
+        _delivery_html(result, output_name, profile),
         _audit_section(audit_figs, audit_note, audit_plots),
         _blind_section(blind_figs),
         _recipe_html(recipe, source_name, output_name),
@@ -574,7 +588,8 @@ def _shell_word(text):
 
 
 def write_sheet(result, path, *, title=None, author=None, note=None, blind=None, audit="auto",
-                block_frames=None, created=None, source_name=None, output_name=None):
+                block_frames=None, created=None, source_name=None, output_name=None,
+                profile=None):
     """Write the design sheet of ``result`` to ``path`` (atomically); return the path.
 
     See :func:`sheet_html` for the options.
@@ -587,5 +602,5 @@ def write_sheet(result, path, *, title=None, author=None, note=None, blind=None,
     """
     text = sheet_html(result, title=title, author=author, note=note, blind=blind, audit=audit,
                       block_frames=block_frames, created=created, source_name=source_name,
-                      output_name=output_name)
+                      output_name=output_name, profile=profile)
     return write_json_atomic(path, text, "sheet")

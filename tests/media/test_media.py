@@ -32,7 +32,7 @@ def _noise(rng, frames, channels, scale=0.25):
 def test_public_defaults_are_pinned():
     assert OUTPUT_FORMATS == {
         ".wav": "WAV", ".flac": "FLAC", ".ogg": "OGG", ".opus": "OGG",
-        ".aif": "AIFF", ".aiff": "AIFF", ".w64": "W64", ".rf64": "RF64",
+        ".aif": "AIFF", ".aiff": "AIFF", ".w64": "W64", ".rf64": "RF64", ".mp3": "MP3",
     }
     assert WORD_LENGTHS == ("16", "24", "32f", "64f")
     params = inspect.signature(read_blocks).parameters
@@ -300,9 +300,9 @@ def test_channel_ceilings(tmp_path, ext, channels, limit):
 
 
 def test_unknown_extension_lists_the_known_ones(tmp_path):
-    with pytest.raises(ParameterError, match=r"must be one of \.aif, \.aiff, \.flac, \.ogg, "
-                                             r"\.opus, \.rf64, \.w64, \.wav; got '\.mp3'"):
-        output_plan(tmp_path / "a.mp3", rate_hz=48000, channels=2)
+    with pytest.raises(ParameterError, match=r"must be one of \.aif, \.aiff, \.flac, \.mp3, "
+                                             r"\.ogg, \.opus, \.rf64, \.w64, \.wav; got '\.m4a'"):
+        output_plan(tmp_path / "a.m4a", rate_hz=48000, channels=2)
     with pytest.raises(ParameterError, match="got no extension"):
         output_plan(tmp_path / "a", rate_hz=48000, channels=2)
 
@@ -576,7 +576,8 @@ def test_tags_survive_wav_to_flac_with_the_conversion_comment(tmp_audio, rng, tm
 
 
 @pytest.mark.parametrize("fmt, ext", [("WAV", ".wav"), ("RF64", ".rf64"), ("FLAC", ".flac"),
-                                      ("OGG", ".ogg"), ("AIFF", ".aiff"), ("W64", ".w64")])
+                                      ("OGG", ".ogg"), ("AIFF", ".aiff"), ("W64", ".w64"),
+                                      ("MP3", ".mp3")])
 def test_tag_support_table_matches_libsndfile(tmp_path, rng, fmt, ext):
     tags = {key: f"value of {key}" for key in TAG_NAMES}
     target = tmp_path / f"t{ext}"
@@ -611,3 +612,42 @@ def test_sha256_file_equals_hashlib_over_the_whole_file(tmp_path, rng):
 def test_module_lists_its_public_names():
     for name in media.__all__:
         assert hasattr(media, name), name
+
+
+# --------------------------------------------------------------------------------------------
+# MP3
+
+@pytest.mark.parametrize("rate, kbps", [(44100, 128), (48000, 320), (32000, 32), (16000, 64),
+                                        (22050, 160), (8000, 32)])
+def test_mp3_bit_rate_is_the_one_asked_for(tmp_path, rng, rate, kbps):
+    # the size of a constant-bit-rate stream is kbps * duration / 8 (ISO/IEC 11172-3 frames
+    # carry a fixed number of bits at a constant rate; from memory) plus the ID3 tag and the
+    # encoder's delay and padding (at most two frames of 1152 samples, common practice)
+    target = tmp_path / "c.mp3"
+    plan = output_plan(target, rate_hz=rate, channels=2, mp3_kbps=kbps)
+    assert (plan.format, plan.subtype, plan.bits, plan.kbps) == ("MP3", "MPEG_LAYER_III", None,
+                                                                   kbps)
+    seconds = 4
+    with AtomicWriter(target, plan) as out:
+        out.write(_noise(rng, rate * seconds, 2, scale=0.1))
+    frame_s = (1152 if rate >= 32000 else 576) / rate
+    size_bits = os.path.getsize(target) * 8
+    assert kbps * 1000 * seconds <= size_bits <= kbps * 1000 * (seconds + 4 * frame_s) + 8 * 4096
+
+
+@pytest.mark.parametrize("kwargs, message", [
+    (dict(rate_hz=96000), r"MP3 carries only 8000, .*48000 Hz; got 96000 Hz"),
+    (dict(rate_hz=16000, mp3_kbps=192), r"mp3_kbps must be a whole number from 8 to 160 kbit/s "
+                                         r"at 16000 Hz, got 192"),
+    (dict(rate_hz=48000, bits="16"), r"lossy and has no word length"),
+    (dict(rate_hz=48000, channels=3), r"at most 2 channels, got 3"),
+])
+def test_mp3_plan_refusals(tmp_path, kwargs, message):
+    args = dict(rate_hz=48000, channels=2) | kwargs
+    with pytest.raises(ParameterError, match=message):
+        output_plan(tmp_path / "x.mp3", **args)
+
+
+def test_mp3_kbps_is_refused_for_other_formats(tmp_path):
+    with pytest.raises(ParameterError, match=r"mp3_kbps applies to \.mp3 outputs only"):
+        output_plan(tmp_path / "x.wav", rate_hz=48000, channels=2, mp3_kbps=128)

@@ -227,12 +227,17 @@ def test_recipe_holds_everything_needed_and_base_names_only(converted):
     text = open(converted["recipe"], encoding="utf-8").read()
     data = json.loads(text)
     res = converted["result"]
-    assert (data["schema"], data["version"]) == ("rateferry-recipe", 1)
+    assert (data["schema"], data["version"]) == ("rateferry-recipe", 2)
     assert data["software"] == {"name": "rateferry", "version": __version__}
     assert data["route"] == {"fs_in": 44100, "fs_out": 48000, "up": 160, "down": 147}
     assert data["spec"] == Spec().to_dict()
     assert data["delivery"] == {"bits": "16", "dither": "tpdf", "dither_seed": 7,
-                                "ceiling_dbtp": -1.0, "loudness_lufs": None}
+                                "ceiling_dbtp": -1.0, "loudness_lufs": None,
+                                "loudness_tolerance_lu": None, "limiter": False,
+                                "max_limiting_db": 6.0, "channel_layout": "keep",
+                                "mono_law": "half", "pick_channel": 1, "mp3_kbps": None,
+                                "mp3_mode": "constant"}
+    assert data["filter_applied"] is True and data["write_passes"] == 1
     assert data["block_frames"] == jobs.BLOCK_FRAMES == 65536
     assert data["design"]["numtaps"] == res.plan.numtaps
     assert data["design"]["method"] == res.plan.method
@@ -250,8 +255,33 @@ def test_loaded_recipe_gives_the_spec_delivery_and_block_size(converted):
     r = load_recipe(converted["recipe"])
     res = converted["result"]
     assert r.spec == res.spec and r.delivery == res.delivery
-    assert (r.fs_in, r.fs_out, r.block_frames, r.version) == (44100, 48000, 65536, 1)
+    assert (r.fs_in, r.fs_out, r.block_frames, r.version) == (44100, 48000, 65536, 2)
     assert r.to_dict() == json.load(open(converted["recipe"]))
+
+
+def _as_version_1(data):
+    """The recipe as version 1 wrote it: five delivery fields, no filter_applied, no
+    write_passes."""
+    old = copy.deepcopy(data)
+    old["version"] = 1
+    old["delivery"] = {k: v for k, v in old["delivery"].items()
+                       if k in recipe_module.RECIPE_V1_DELIVERY}
+    del old["filter_applied"], old["write_passes"]
+    return old
+
+
+def test_a_version_1_recipe_is_upgraded_and_re_runs_bit_for_bit(converted, tmp_path, capsys):
+    old = _as_version_1(json.load(open(converted["recipe"])))
+    path = tmp_path / "v1.recipe.json"
+    path.write_text(json.dumps(old))
+    r = load_recipe(path)
+    assert r.version == 1 and r.data["version"] == 2 and r.filter_applied is True
+    assert r.delivery == Delivery(bits="16", dither_seed=7, ceiling_dbtp=-1.0)
+    code, out, err = _run(capsys, "convert", converted["src"], tmp_path / "again.wav",
+                          "--recipe", path, "--json")
+    assert code == 0, err
+    assert json.loads(out)["recipe"]["reproduces"] is True
+    assert _sha(tmp_path / "again.wav") == old["output"]["sha256"]
 
 
 def test_load_recipe_reads_a_path_bytes_a_file_object_and_a_dict(converted):
@@ -301,11 +331,10 @@ def test_schema_pins_the_spec_and_delivery_fields(schema):
     assert set(spec_props) == {f.name for f in fields(Spec)}
     assert set(schema["properties"]["spec"]["required"]) == set(spec_props)
     dl = schema["properties"]["delivery"]
-    # version 1 records the Delivery fields the pipeline applies; those added for limiter,
-    # channel layout and MP3 join with the version that applies them
-    assert set(dl["properties"]) == set(dl["required"]) == set(recipe_module.RECIPE_V1_DELIVERY)
+    # version 2 records every Delivery field (version 1 recorded the first five)
+    assert set(dl["properties"]) == set(dl["required"]) == {f.name for f in fields(Delivery)}
     assert set(recipe_module.RECIPE_V1_DELIVERY) <= {f.name for f in fields(Delivery)}
-    assert schema["properties"]["version"]["const"] == recipe_module.RECIPE_VERSION == 1
+    assert schema["properties"]["version"]["const"] == recipe_module.RECIPE_VERSION == 2
 
 
 def test_every_schema_property_is_documented(schema):
@@ -368,7 +397,7 @@ def test_broken_recipes_are_refused_naming_the_field_like_the_reference_validato
 
 
 @pytest.mark.parametrize("change, rule", [
-    ({"version": 2}, "recipe version 2 is newer than this Rateferry"),
+    ({"version": 3}, "recipe version 3 is newer than this Rateferry"),
     ({"version": 0}, "recipe version 0 is not a released recipe format"),
     ({"version": "1"}, "recipe version must be a whole number, got \"1\""),
     ({"version": None}, "recipe version must be a whole number, got null"),

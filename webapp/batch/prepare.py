@@ -46,6 +46,7 @@ class Settings:
     format: str | None = None          # output extension with the dot; None: the source's
     name_pattern: str | None = None
     recipe: object = None              # webapp.recipe.Recipe
+    filter_same_rate: bool = False     # run the filter on same-rate files too
 
 
 @dataclass
@@ -130,7 +131,8 @@ def _entry(item, settings, spec, delivery, fs_out, block, plans, design_errors):
                 design_errors[key] = exc
                 raise
         options = dict(fs_out=fs_out, spec=spec, delivery=delivery, plan=plans[key],
-                       block_frames=block, probe=probe)
+                       block_frames=block, probe=probe,
+                       filter_same_rate=settings.filter_same_rate)
         if item.output:
             name = item.output
         else:

@@ -15,7 +15,8 @@ from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
 from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
 from webapp.dsp.timebase import TimeBase, timebase_design
 from webapp.store import ACTIVE_STATUSES, FINAL_STATUSES, new_id
-from webapp.delivery import DITHERS, Delivery
+from webapp.delivery import CHANNEL_LAYOUTS, DITHERS, MONO_LAWS, MP3_MODES, Delivery
+from webapp.profiles import PROFILES
 from webapp import jobs
 
 from webapp import figures, listening
@@ -79,7 +80,7 @@ DEFAULT_TARGETS_HZ = (48000, 44100)
 DEFAULT_FORMAT = "flac"
 #: Output format names the page offers -> file extension.
 OUTPUT_FORMAT_EXTENSIONS = {"flac": ".flac", "wav": ".wav", "aiff": ".aiff", "w64": ".w64",
-                            "rf64": ".rf64", "ogg": ".ogg", "opus": ".opus"}
+                            "rf64": ".rf64", "ogg": ".ogg", "opus": ".opus", "mp3": ".mp3"}
 _MIMETYPES = {"WAV": "audio/wav", "RF64": "audio/wav", "W64": "audio/x-w64",
               "FLAC": "audio/flac", "OGG": "audio/ogg", "AIFF": "audio/aiff",
               "MPEG": "audio/mpeg", "CAF": "audio/x-caf", "AU": "audio/basic"}
@@ -162,6 +163,9 @@ def options():
         excerpt_max_s=current_app.config["EXCERPT_MAX_S"],
         rendition_min_s=listening.RENDITION_MIN_S,
         playback_preset=PLAYBACK_PRESET,
+        profiles={name: p.to_dict() for name, p in PROFILES.items()},
+        channel_layouts=list(CHANNEL_LAYOUTS),
+        mono_laws=list(MONO_LAWS), mp3_modes=list(MP3_MODES),
     ))
 
 
@@ -631,7 +635,9 @@ def _result_for(conv):
         gain_db=f["gain_db"], gain_reason=f["gain_reason"], source_meters=f["source"],
         output_meters=output_meters, clipped_samples=f["clipped_samples"], passes=f["passes"],
         source_sha256=f["source_sha256"], output_sha256=f["output_sha256"], version=f["version"],
-        time_base=time_base)
+        time_base=time_base, channels_out=f.get("channels_out"),
+        filter_applied=f.get("filter_applied", True),
+        delivery_report=f.get("delivery_report") or {})
 
 
 def _user_names(conv):

@@ -10,6 +10,7 @@ import { el, fill, showError, clearErrors, errorSlot, numberOf } from '../ui.js'
 
 const BITS_LABELS = { '': 'like the source', 16: '16-bit PCM', 24: '24-bit PCM', '32f': '32-bit float', '64f': '64-bit float' };
 export const DITHER_LABELS = { none: 'none (round)', tpdf: 'TPDF', shaped: 'TPDF, noise shaped' };
+const CHANNEL_LABELS = { keep: 'as recorded', mono: 'mono (fold-down)', pick: 'one channel', stereo: 'stereo from mono' };
 const ACTIVE = ['queued', 'running'];
 
 /** Show an error beside its control anywhere on the page, and in this bar's own slot. */
@@ -37,6 +38,10 @@ export function init(root, state) {
   const dither = el('select', { name: 'dither', id: 'out-dither' });
   const seed = el('input', { type: 'number', name: 'dither_seed', id: 'out-seed', min: 0, step: 1 });
   const ceiling = el('input', { type: 'number', name: 'ceiling_dbtp', id: 'out-ceiling', min: -60, max: 0, step: 'any', placeholder: 'none', title: 'Empty: the true peak is only reported.' });
+  const profile = el('select', { name: 'profile', id: 'out-profile', title: 'A destination fills the rate, format, channels, loudness, ceiling and limiter from its profile; every control stays editable.' });
+  const profileFacts = el('ul', { class: 'hint', id: 'out-profile-sources' });
+  const limiter = el('input', { type: 'checkbox', name: 'limiter', id: 'out-limiter', title: 'The look-ahead true-peak limiter holds the ceiling so the loudness target is met.' });
+  const channels = el('select', { name: 'channel_layout', id: 'out-channels' });
   const loudness = el('input', { type: 'number', name: 'loudness_lufs', id: 'out-loudness', min: -70, max: 0, step: 'any', placeholder: 'keep', title: 'Empty: the loudness is kept. With a ceiling or a target the file is measured first, then written with the gain that satisfies both.' });
 
   const summary = el('p', { class: 'action-summary', id: 'action-summary', 'aria-live': 'polite' });
@@ -51,12 +56,16 @@ export function init(root, state) {
     summary,
     el('div', { class: 'action-go' }, startBtn, cancelBtn),
     el('div', { class: 'delivery-row', role: 'group', 'aria-label': 'delivery' },
+      field('out-profile', 'Destination', profile, null, 'profile'),
       field('out-format', 'File format', format, null, 'format'),
       field('out-bits', 'Word length', bits, null, 'bits'),
       field('out-dither', 'Dither', dither, null, 'dither'),
       field('out-seed', 'Dither seed', seed, null, 'dither_seed'),
       field('out-ceiling', 'True-peak ceiling', ceiling, 'dBTP', 'ceiling_dbtp'),
-      field('out-loudness', 'Loudness target', loudness, 'LUFS', 'loudness_lufs')),
+      field('out-loudness', 'Loudness target', loudness, 'LUFS', 'loudness_lufs'),
+      field('out-channels', 'Channels', channels, null, 'channel_layout'),
+      el('div', { class: 'field' }, el('label', { for: 'out-limiter' }, limiter, ' Limiter'), errorSlot('limiter'))),
+    profileFacts,
     el('div', { class: 'action-progress' }, progress, status,
       errorSlot('recording_id'), errorSlot('delivery'), errorSlot('*')),
     notice);
@@ -69,6 +78,9 @@ export function init(root, state) {
     format.replaceChildren(...o.output_formats.map((f) => el('option', { value: f }, f.toUpperCase())));
     bits.replaceChildren(el('option', { value: '' }, BITS_LABELS['']), ...o.word_lengths.map((b) => el('option', { value: b }, BITS_LABELS[b] || b)));
     dither.replaceChildren(...o.dithers.map((d) => el('option', { value: d }, DITHER_LABELS[d] || d)));
+    profile.replaceChildren(el('option', { value: '' }, 'my own settings'),
+      ...Object.values(o.profiles || {}).map((p) => el('option', { value: p.name }, p.label)));
+    channels.replaceChildren(...(o.channel_layouts || []).map((c) => el('option', { value: c }, CHANNEL_LABELS[c] || c)));
     showDelivery(s);
   });
 
@@ -81,6 +93,8 @@ export function init(root, state) {
     seed.value = String(d.dither_seed);
     if (document.activeElement !== ceiling) ceiling.value = d.ceiling_dbtp ?? '';
     if (document.activeElement !== loudness) loudness.value = d.loudness_lufs ?? '';
+    limiter.checked = Boolean(d.limiter);
+    channels.value = d.channel_layout || 'keep';
     dither.disabled = bits.value === '32f' || bits.value === '64f';
   }
   state.on(['delivery', 'format'], showDelivery);
@@ -91,6 +105,10 @@ export function init(root, state) {
       return Number.isNaN(v) ? input.value : v;
     };
     return {
+      ...state.get('delivery'),
+      limiter: limiter.checked,
+      channel_layout: channels.value || 'keep',
+      mp3_kbps: format.value === 'mp3' ? (state.get('delivery').mp3_kbps ?? null) : null,
       bits: bits.value === '' ? null : bits.value,
       dither: dither.value,
       dither_seed: value(seed) ?? 0,
@@ -98,10 +116,29 @@ export function init(root, state) {
       loudness_lufs: value(loudness),
     };
   }
-  for (const c of [bits, dither, seed, ceiling, loudness]) {
+  for (const c of [bits, dither, seed, ceiling, loudness, limiter, channels]) {
     c.addEventListener('change', () => state.set({ delivery: readDelivery() }));
   }
   format.addEventListener('change', () => state.set({ format: format.value }));
+
+  // A destination fills the delivery, the format, the target rate and the filter preset from
+  // its profile (every control stays editable); each number is listed with its source.
+  profile.addEventListener('change', () => {
+    const s = state.get();
+    const p = (s.options.profiles || {})[profile.value];
+    profileFacts.replaceChildren();
+    if (!p) return;
+    const delivery = { ...s.options.default_delivery };
+    for (const k of Object.keys(delivery)) if (k in p) delivery[k] = p[k];
+    const patch = { delivery, format: p.container };
+    if (s.route) {
+      const fsOut = p.rate_hz ?? (s.recording ? s.recording.rate_hz : s.route.fs_out);
+      patch.route = { ...s.route, fs_out: fsOut, preset: p.preset, spec: {} };
+    }
+    state.set(patch);
+    profileFacts.replaceChildren(...Object.entries(p.sources || {}).map(([k, text]) =>
+      el('li', {}, `${k.replace(/_/g, ' ')} ${p[k] ?? 'none'}: ${text}`)));
+  });
 
   // ---------------------------------------------------------------- summary and notices
 

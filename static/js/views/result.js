@@ -45,6 +45,18 @@ export function init(root, state) {
     ];
   }
 
+  function deliveryFacts(f) {
+    const r = f.delivery_report || {};
+    const rows = [];
+    if (r.met === true || r.met === false) {
+      rows.push(['Delivery', r.met ? `met (verified on ${r.verified_on})` : `NOT met: ${(r.notes || []).join('; ')}`, r.met ? '' : 'bad']);
+    }
+    if (r.limiter) rows.push(['Limiter', `largest reduction ${fmt.db(r.limiter.max_gain_reduction_db, 2)}, limiting ${r.limiter.limited_s.toFixed(2)} s`]);
+    if (r.write_passes > 1) rows.push(['Write passes', String(r.write_passes)]);
+    if (r.filter_applied === false) rows.push(['Filter', 'none: same rate in and out']);
+    return rows;
+  }
+
   function show(c) {
     const f = c.figures;
     const o = (f && f.output) || {};
@@ -60,6 +72,7 @@ export function init(root, state) {
         ['Clipped samples', fmt.grouped(f.clipped_samples), f.clipped_samples > 0 ? 'bad' : ''],
         ['Dither', `${DITHER_LABELS[f.delivery.dither] || f.delivery.dither}, seed ${f.delivery.dither_seed}`],
         ['Passes', String(f.passes)],
+        ...deliveryFacts(f),
         ['Output sha256', el('span', { class: 'mono' }, f.output_sha256 || fmt.dash)],
       ], 'facts compact') : null,
       el('div', { class: 'downloads' }, ...links(c)),

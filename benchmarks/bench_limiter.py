@@ -1,0 +1,91 @@
+"""The look-ahead true-peak limiter's cost per hour of stereo audio beside the conversion's, and
+the shaped-dither quantiser's beside plain TPDF, in one run.
+
+Run: ``python benchmarks/bench_limiter.py [--seconds 20] [--block 65536]`` (the runner,
+``python -m benchmarks``, takes its figures from ``main()``).
+
+Rows (seconds of work per hour of stereo 48 kHz audio, best of three, BLAS held to one thread
+as in the pipeline; the reference of every row is the conversion 44.1 -> 48 kHz with the
+"music_delivery" mask):
+
+* the limiter (ceiling -1 dBTP) on programme-like noise pushed 12 dB (it limits often), as it
+  is (it seldom needs to), and on a full-scale 19 kHz tone (every frame over the ceiling);
+* the whole delivery chain as the pipeline runs it for a limited delivery: gain, limiter and
+  16-bit quantiser with TPDF;
+* the 16-bit quantiser with TPDF and with shaped dither (the shaped one's error feedback is a
+  per-sample loop: the rounding inside the loop is what keeps it from a linear filter).
+
+Figures only; nothing here asserts a time. The helpers are bench_meters.py's.
+"""
+
+import argparse
+import os
+import sys
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+
+from bench_meters import RATE_HZ, SOURCE_RATE_HZ, best_of, conversion, limited, programme  # noqa: E402
+from webapp.dsp.dither import Quantizer  # noqa: E402
+from webapp.dsp.limiter import TruePeakLimiter  # noqa: E402
+
+
+def chain(x, block):
+    """Gain, limiter and 16-bit TPDF quantiser, block by block (the pipeline's order)."""
+    def run():
+        limiter = TruePeakLimiter(rate_hz=RATE_HZ, channels=2, ceiling_dbtp=-1.0)
+        quantizer = Quantizer(bits="16", dither="tpdf", channels=2, rate_hz=RATE_HZ)
+        for i in range(0, x.shape[0], block):
+            quantizer.process(limiter.process(x[i:i + block] * 2.0))
+        quantizer.process(limiter.flush())
+    return run
+
+
+def figures(seconds, block):
+    rng = np.random.default_rng(1)
+    x = programme(seconds, RATE_HZ, rng)
+    source = programme(seconds, SOURCE_RATE_HZ, rng)
+    tone = np.repeat(np.sin(2 * np.pi * 19000 * np.arange(x.shape[0]) / RATE_HZ)[:, None], 2, axis=1)
+    per_hour = 3600.0 / seconds
+    conv = best_of(3, conversion(source, block)) * per_hour
+    reference = "conversion 44.1 -> 48 kHz, music_delivery (120 dB, float64)"
+
+    def row(name, value):
+        return dict(name=name, value=value, unit="s/hour", reference=reference,
+                    reference_value=conv, ratio=value / conv)
+
+    rows = [
+        row("limiter, programme pushed 12 dB", best_of(3, limited(x * 10 ** (12 / 20), block)) * per_hour),
+        row("limiter, programme as it is", best_of(3, limited(x, block)) * per_hour),
+        row("limiter, full-scale 19 kHz tone", best_of(3, limited(tone, block)) * per_hour),
+        row("gain + limiter + 16-bit TPDF quantiser", best_of(3, chain(x, block)) * per_hour),
+    ]
+    short = x[: int(RATE_HZ * min(seconds, 5.0))]
+    for dither in ("tpdf", "shaped"):
+        quantizer = Quantizer(bits="16", dither=dither, channels=2, rate_hz=RATE_HZ)
+        spent = best_of(1, lambda q=quantizer: q.process(short))
+        rows.append(row(f"16-bit quantiser, dither={dither}", spent * 3600.0 * RATE_HZ / short.shape[0]))
+    return rows
+
+
+def main(argv=None):
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--seconds", type=float, default=20.0)
+    parser.add_argument("--block", type=int, default=65536)
+    args = parser.parse_args(argv)
+    with threadpool_limits(limits=1, user_api="blas"):
+        rows = figures(args.seconds, args.block)
+    return dict(title=f"limiter and dither, stereo {RATE_HZ} Hz, {args.seconds:g} s of audio, blocks "
+                      f"of {args.block} frames, BLAS 1 thread, seconds per hour of audio",
+                load_average=list(os.getloadavg()), figures=rows)
+
+
+if __name__ == "__main__":
+    result = main()
+    print(result["title"], "| load average", " ".join(f"{v:.2f}" for v in result["load_average"]))
+    for r in result["figures"]:
+        print(f"{r['name']:44s}  {r['value']:8.2f}   | {r['reference']}: {r['reference_value']:.2f} "
+              f"(x{r['ratio']:.2f})")
