@@ -1,6 +1,7 @@
 """Listening: renditions of an excerpt (original, converted, difference) level-matched and
 time-aligned at the playback rate, and the statistics of blind trials (no Flask here)."""
 
+from dataclasses import dataclass
 from fractions import Fraction
 import math
 import os
@@ -71,6 +72,112 @@ def _peak_db(x):
     return 20 * math.log10(p) if p > 0 else None
 
 
+@dataclass(frozen=True)
+class _Window:
+    """An excerpt on a time grid common to the three rates (``g`` Hz): the asked part
+    [start_u, start_u + length_u) and the part read with margins [s0_u, e0_u), in grid units."""
+
+    g: int
+    snapped: bool
+    start_u: int
+    length_u: int
+    s0_u: int
+    e0_u: int
+
+    def frames(self, u, rate):
+        return u * rate // self.g
+
+
+def _window(probe, fs_out, rate_hz, start_s, length_s):
+    fs_in = probe.rate_hz
+    g = _grid_hz(fs_in, fs_out, rate_hz)
+    snapped = g >= 10
+    if not snapped:
+        g = fs_in
+    start_u = int(round(start_s * g))
+    total_u = probe.frames * g // fs_in
+    length_u = min(int(round(length_s * g)), total_u - start_u)
+    if length_u <= 0:
+        raise ParameterError(f"start_s must lie inside the recording, got {start_s:g}", "start_s")
+    margin_u = int(math.ceil(MARGIN_S * g))
+    return _Window(g=g, snapped=snapped, start_u=start_u, length_u=length_u,
+                   s0_u=max(0, start_u - margin_u),
+                   e0_u=min(total_u, start_u + length_u + margin_u))
+
+
+def _converted_excerpt(source_path, orig, converted, w, fs_in, rate_hz, channels):
+    """The converted audio at fs_out covering the same source times as ``orig``, and the shift
+    (samples at the playback rate) that undoes a minimum-phase design's delay.
+
+    A minimum-phase design keeps its delay: the converted audio is taken that much later,
+    rounded to a sample at the playback rate (the finer grid of the two when it is the higher
+    rate)."""
+    plan = converted["plan"]
+    fs_out = plan.fs_out
+    latency_ms = float(plan.latency_ms) if plan.phase == "minimum" else 0.0
+    shift = int(round(latency_ms / 1000.0 * rate_hz))
+    extra = int(math.ceil(latency_ms / 1000.0 * fs_out)) + 1 if shift else 0
+    span = w.frames(w.e0_u - w.s0_u, fs_out) + extra
+    if "path" in converted:
+        out_frames = media.probe(converted["path"]).frames
+        a = w.frames(w.s0_u, fs_out)
+        count = min(span, max(0, out_frames - a))
+        conv = read_frames(converted["path"], a, count) if count > 0 else None
+    else:
+        # convert the same stretch of the source (longer by the latency when there is one)
+        need = -(-span * fs_in // fs_out) + 1
+        src = orig if not extra else read_frames(source_path, w.frames(w.s0_u, fs_in), need)
+        conv = convert(src, plan)
+    return _fit(conv, span, channels), shift, latency_ms
+
+
+def _level_match(orig_r, conv_r, rate_hz):
+    """Gains (dB) that bring both to the quieter one's integrated loudness (or rms when the
+    excerpt is too short to gate), the method, the target and both loudness figures."""
+    l_orig, l_conv = _loudness_or_none(orig_r, rate_hz), _loudness_or_none(conv_r, rate_hz)
+    if l_orig is not None and l_conv is not None:
+        target = min(l_orig, l_conv)
+        return dict(method="integrated_loudness", target=target, g_orig=target - l_orig,
+                    g_conv=target - l_conv, l_orig=l_orig, l_conv=l_conv)
+    r_orig, r_conv = _rms_db(orig_r), _rms_db(conv_r)
+    if r_orig is not None and r_conv is not None:
+        target = min(r_orig, r_conv)
+        return dict(method="rms", target=target, g_orig=target - r_orig,
+                    g_conv=target - r_conv, l_orig=l_orig, l_conv=l_conv)
+    return dict(method="none", target=None, g_orig=0.0, g_conv=0.0, l_orig=l_orig,
+                l_conv=l_conv)
+
+
+def _write_renditions(folder, rendition_id, rate_hz, channels, sample_format, parts):
+    bits = "32f" if sample_format == "float32" else "24"
+    paths = {}
+    for kind, data in parts:
+        path = os.path.join(folder, f"{rendition_id}_{kind}.wav")
+        out_plan = media.output_plan(path, rate_hz=rate_hz, channels=channels, bits=bits)
+        with media.AtomicWriter(path, out_plan) as w:
+            w.write(data.astype(np.float32 if bits == "32f" else np.float64))
+        paths[kind] = path
+    return paths
+
+
+def _caution_text(level):
+    if level is None or level < -20.0:
+        return ("Hearing caution: the difference is "
+                + (f"{-level:.0f} dB below the original" if level is not None else "silent")
+                + ". Boosting it to hear it also boosts any sudden loud part; start with "
+                "the volume low and raise it slowly.")
+    return "Hearing caution: the difference is loud; keep the volume low."
+
+
+def _alignment_text(phase, shift, rate_hz, latency_ms):
+    if phase == "minimum":
+        return (f"minimum phase: the converted audio was moved {shift} samples "
+                f"({shift / rate_hz * 1000:.3f} ms) earlier to undo the filter's latency of "
+                f"{latency_ms:.3f} ms (its passband group delay); the group delay varies "
+                f"with frequency, so phase differences remain")
+    return "the converter removes its own delay (linear phase); no shift needed"
+
+
 def make_renditions(*, source_path, probe, converted, start_s, length_s, rate_hz, cache,
                     folder, rendition_id, sample_format="float32", max_length_s=60.0):
     """Write the original, converted and difference excerpts as WAV files at ``rate_hz``.
@@ -80,8 +187,8 @@ def make_renditions(*, source_path, probe, converted, start_s, length_s, rate_hz
     source_path : str
     probe : media.Probe of the source
     converted : dict
-        Either ``{"path": output file, "plan": design}`` (a finished conversion) or
-        ``{"plan": design}`` (convert the excerpt now with the same design).
+        Either ``{"path": output file, "plan": plan}`` (a finished conversion) or
+        ``{"plan": plan}`` (convert the excerpt now with the same plan).
     start_s, length_s : float
         The excerpt; the start is snapped to a grid common to all three rates so every
         rendition starts on a whole sample (exact alignment).
@@ -96,110 +203,44 @@ def make_renditions(*, source_path, probe, converted, start_s, length_s, rate_hz
     figures : dict
     paths : dict of kind -> path
     """
-    fs_in = probe.rate_hz
-    plan = converted["plan"]
+    fs_in, plan, channels = probe.rate_hz, converted["plan"], probe.channels
     fs_out = plan.fs_out
-    channels = probe.channels
     check_excerpt(float(start_s), float(length_s), probe.duration_s, max_length_s,
-                   minimum_s=RENDITION_MIN_S)
-    g = _grid_hz(fs_in, fs_out, rate_hz)
-    snapped = g >= 10
-    if not snapped:
-        g = fs_in
-    start_u = int(round(start_s * g))
-    total_u = probe.frames * g // fs_in
-    length_u = min(int(round(length_s * g)), total_u - start_u)
-    if length_u <= 0:
-        raise ParameterError(f"start_s must lie inside the recording, got {start_s:g}", "start_s")
-    margin_u = int(math.ceil(MARGIN_S * g))
-    s0_u = max(0, start_u - margin_u)
-    e0_u = min(total_u, start_u + length_u + margin_u)
-
-    def frames(u, rate):
-        return u * rate // g
-
-    # original at fs_in, covering [s0, e0)
-    orig = read_frames(source_path, frames(s0_u, fs_in), frames(e0_u - s0_u, fs_in))
-    # converted at fs_out, covering the same source times. A minimum-phase design keeps its
-    # delay: the converted audio is taken that much later, rounded to a sample at the playback
-    # rate (the finer grid of the two when it is the higher rate)
-    phase = plan.phase
-    latency_ms = float(plan.latency_ms) if phase == "minimum" else 0.0
-    shift = int(round(latency_ms / 1000.0 * rate_hz))
-    extra = int(math.ceil(latency_ms / 1000.0 * fs_out)) + 1 if shift else 0
-    span = frames(e0_u - s0_u, fs_out) + extra
-    if "path" in converted:
-        out_frames = media.probe(converted["path"]).frames
-        a = frames(s0_u, fs_out)
-        count = min(span, max(0, out_frames - a))
-        conv = read_frames(converted["path"], a, count) if count > 0 else None
-    else:
-        # convert the same stretch of the source (longer by the latency when there is one)
-        need = -(-span * fs_in // fs_out) + 1
-        src = orig if not extra else read_frames(source_path, frames(s0_u, fs_in), need)
-        conv = convert(src, plan)
-    conv = _fit(conv, span, channels)
-
-    n = frames(length_u, rate_hz)
-    lead = frames(start_u - s0_u, rate_hz)
+                  minimum_s=RENDITION_MIN_S)
+    w = _window(probe, fs_out, rate_hz, start_s, length_s)
+    orig = read_frames(source_path, w.frames(w.s0_u, fs_in), w.frames(w.e0_u - w.s0_u, fs_in))
+    conv, shift, latency_ms = _converted_excerpt(source_path, orig, converted, w, fs_in,
+                                                 rate_hz, channels)
+    n = w.frames(w.length_u, rate_hz)
+    lead = w.frames(w.start_u - w.s0_u, rate_hz)
     orig_r = _fit(_to_rate(orig, fs_in, rate_hz, cache)[lead:], n, channels)
     conv_r = _fit(_to_rate(conv, fs_out, rate_hz, cache)[lead + shift:], n, channels)
-
-    l_orig, l_conv = _loudness_or_none(orig_r, rate_hz), _loudness_or_none(conv_r, rate_hz)
-    if l_orig is not None and l_conv is not None:
-        method, target = "integrated_loudness", min(l_orig, l_conv)
-        g_orig, g_conv = target - l_orig, target - l_conv
-    else:
-        r_orig, r_conv = _rms_db(orig_r), _rms_db(conv_r)
-        if r_orig is not None and r_conv is not None:
-            method, target = "rms", min(r_orig, r_conv)
-            g_orig, g_conv = target - r_orig, target - r_conv
-        else:
-            method, target, g_orig, g_conv = "none", None, 0.0, 0.0
-    orig_m = orig_r * 10 ** (g_orig / 20)
-    conv_m = conv_r * 10 ** (g_conv / 20)
+    lm = _level_match(orig_r, conv_r, rate_hz)
+    orig_m = orig_r * 10 ** (lm["g_orig"] / 20)
+    conv_m = conv_r * 10 ** (lm["g_conv"] / 20)
     diff = conv_m - orig_m
-
     rms_diff, rms_orig, peak_diff = _rms_db(diff), _rms_db(orig_m), _peak_db(diff)
     level = None if rms_diff is None or rms_orig is None else rms_diff - rms_orig
-    bits = "32f" if sample_format == "float32" else "24"
-    paths = {}
-    for kind, data in (("original", orig_m), ("converted", conv_m), ("difference", diff)):
-        path = os.path.join(folder, f"{rendition_id}_{kind}.wav")
-        out_plan = media.output_plan(path, rate_hz=rate_hz, channels=channels, bits=bits)
-        with media.AtomicWriter(path, out_plan) as w:
-            w.write(data.astype(np.float32 if bits == "32f" else np.float64))
-        paths[kind] = path
-    boost = None if peak_diff is None else -peak_diff
-    quiet = level is None or level < -20.0
-    caution_text = ("Hearing caution: the difference is "
-                    + (f"{-level:.0f} dB below the original" if level is not None else "silent")
-                    + ". Boosting it to hear it also boosts any sudden loud part; start with "
-                    "the volume low and raise it slowly." if quiet else
-                    "Hearing caution: the difference is loud; keep the volume low.")
-    if phase == "minimum":
-        align_text = (f"minimum phase: the converted audio was moved {shift} samples "
-                      f"({shift / rate_hz * 1000:.3f} ms) earlier to undo the filter's latency of "
-                      f"{latency_ms:.3f} ms (its passband group delay); the group delay varies "
-                      f"with frequency, so phase differences remain")
-    else:
-        align_text = "the converter removes its own delay (linear phase); no shift needed"
+    paths = _write_renditions(folder, rendition_id, rate_hz, channels, sample_format,
+                              (("original", orig_m), ("converted", conv_m),
+                               ("difference", diff)))
     figures = dict(
-        rate_hz=int(rate_hz), start_s=start_u / g, length_s=length_u / g, frames=int(n),
-        requested_start_s=float(start_s), sample_format=sample_format,
-        snapped_to_hz=g if snapped else None,
-        alignment=dict(phase=phase, shift_samples=shift, shift_rate_hz=int(rate_hz),
-                       shift_ms=shift / rate_hz * 1000.0,
-                       latency_ms=latency_ms, text=align_text),
-        level_match=dict(method=method, target=target,
-                         unit="LUFS" if method == "integrated_loudness" else "dBFS"),
+        rate_hz=int(rate_hz), start_s=w.start_u / w.g, length_s=w.length_u / w.g,
+        frames=int(n), requested_start_s=float(start_s), sample_format=sample_format,
+        snapped_to_hz=w.g if w.snapped else None,
+        alignment=dict(phase=plan.phase, shift_samples=shift, shift_rate_hz=int(rate_hz),
+                       shift_ms=shift / rate_hz * 1000.0, latency_ms=latency_ms,
+                       text=_alignment_text(plan.phase, shift, rate_hz, latency_ms)),
+        level_match=dict(method=lm["method"], target=lm["target"],
+                         unit="LUFS" if lm["method"] == "integrated_loudness" else "dBFS"),
         original=dict(source_rate_hz=fs_in, resampled_for_playback=fs_in != rate_hz,
-                      integrated_lufs=l_orig, gain_db=g_orig),
+                      integrated_lufs=lm["l_orig"], gain_db=lm["g_orig"]),
         converted=dict(source_rate_hz=fs_out, resampled_for_playback=fs_out != rate_hz,
-                       integrated_lufs=l_conv, gain_db=g_conv,
+                       integrated_lufs=lm["l_conv"], gain_db=lm["g_conv"],
                        from_output_file="path" in converted),
         difference=dict(rms_dbfs=rms_diff, level_db=level, peak_dbfs=peak_diff,
-                        max_boost_db=boost, caution=True, caution_text=caution_text),
+                        max_boost_db=None if peak_diff is None else -peak_diff, caution=True,
+                        caution_text=_caution_text(level)),
         playback_preset=PLAYBACK_PRESET,
     )
     return figures, paths

@@ -1,6 +1,6 @@
 """Batches in the web app: a named group of conversions in the web app's store.
 
-The page's batch runs on the server's own conversion pool (:class:`webapp.store.ConversionPool`),
+The page's batch runs on the server's own conversion pool (:class:`webapp.workers.ConversionPool`),
 not on a Dask cluster: the server is one local process whose pool is already sized to the
 machine, and each file of a page batch is an ordinary conversion (its own progress, cancel,
 downloads, design sheet and recipe, and its line in the history). Starting a LocalCluster inside

@@ -32,7 +32,8 @@ from flask import Flask
 
 from webapp import __version__
 from webapp.assets import DEMO_MEDIA_FOLDER, STATIC_FOLDER
-from webapp.store import ConversionPool, Store, default_instance_path
+from webapp.store import Store, default_instance_path
+from webapp.workers import ConversionPool
 
 __all__ = ["create_app", "State", "DEFAULT_MAX_CONTENT_LENGTH", "SOURCE_ROOT"]
 
