@@ -155,8 +155,8 @@ def test_drift_out_writes_corrected_tracks_that_remeasure_within_a_tenth_of_a_ms
                          t["corrected"]["recipe"], "--json", "--quiet")
     assert code == 0, err
     figs = json.loads(out)
-    assert figs["reproduces_recipe"] is True
-    assert figs["output_sha256"] == t["corrected"]["output_sha256"]
+    assert figs["recipe"]["reproduces"] is True
+    assert figs["output"]["sha256"] == t["corrected"]["output_sha256"]
     assert figs["time_base"] == t["corrected"]["time_base"]
 
 

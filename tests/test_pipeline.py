@@ -85,7 +85,7 @@ def test_clipping_is_counted_when_no_ceiling_is_set(tmp_audio, tmp_path):
     r = convert_file(src, tmp_path / "o.wav", fs_out=48000,
                      delivery=Delivery(bits="16", dither="none"))
     # direct count: the float conversion's samples whose 16-bit code leaves the word's range
-    f = convert_file(src, tmp_path / "f.wav", fs_out=48000, delivery=Delivery(bits="64f"))
+    convert_file(src, tmp_path / "f.wav", fs_out=48000, delivery=Delivery(bits="64f"))
     yf, _ = sf.read(tmp_path / "f.wav")
     codes = np.rint(yf * 32768.0)
     expected = int(np.sum((codes > 32767) | (codes < -32768)))

@@ -108,6 +108,10 @@ def convert_report(result, *, rerun=None):
                     block_frames=result.block_frames),
     )
     report = rounded(report)
+    for name in ("time_base", "speed"):   # a drift correction or a speed change, every digit:
+        value = getattr(result, name, None)   # these numbers make a re-run bit-exact
+        if value is not None:
+            report[name] = value.to_dict() if hasattr(value, "to_dict") else dict(value)
     if rerun is not None:
         # differences keep every digit: a rounded value could hide the difference it reports
         report["recipe"] = dict(reproduces=rerun.reproduces,
