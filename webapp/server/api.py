@@ -11,24 +11,21 @@ from flask import Blueprint, Response, current_app, request, send_file
 from webapp import __version__, media
 from webapp.jsontools import jsonable
 from webapp.dsp import spec as spec_module
-from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
+from webapp.dsp.errors import ParameterError
 from webapp.dsp.rates import MAX_RATE_HZ, MIN_RATE_HZ
 from webapp.dsp.timebase import TimeBase, timebase_design
-from webapp.store import ACTIVE_STATUSES, FINAL_STATUSES, new_id
+from webapp.store import FINAL_STATUSES, new_id
 from webapp.delivery import CHANNEL_LAYOUTS, DITHERS, MONO_LAWS, MP3_MODES, Delivery
 from webapp.profiles import PROFILES
 from webapp import jobs
 
 from webapp import figures, listening
-from webapp.designs import PLAYBACK_PRESET, design_estimate, design_key
+from webapp.designs import PLAYBACK_PRESET, design_key
 from webapp.recipe import load_recipe, recipe_file_name
 from .db import get_db, state
 from .errors import ApiError
-from .library import measure, probe_figures
-from .params import (choice, conversion_or_404, integer, json_body, number, rate,
-                     recording_file_or_410, recording_or_404, spec_input)
-from .uploads import UPLOAD_EXTENSIONS, discard_incoming, display_name, take_upload, \
-    upload_extension
+from .params import (choice, conversion_or_404, json_body, number, recording_file_or_410, recording_or_404, spec_input)
+from .uploads import UPLOAD_EXTENSIONS, discard_incoming, display_name
 
 __all__ = ["bp", "URLS", "COMMON_RATES_HZ", "OUTPUT_FORMAT_EXTENSIONS"]
 
@@ -109,6 +106,24 @@ def _stem(name):
     return stem[:120]
 
 
+def _store_design(spec, fs_in, fs_out, figures):
+    return get_db().put_design(key=design_key(spec, fs_in, fs_out), fs_in=fs_in,
+                               fs_out=fs_out, spec=spec.to_dict(), figures=jsonable(figures))
+
+def _bool(data, name, default):
+    value = data.get(name, default)
+    if not isinstance(value, bool):
+        raise ParameterError(f"{name} must be true or false, got {value!r}", name)
+    return value
+
+def _file_field():
+    """The multipart field ``file`` of the request."""
+    storage = request.files.get("file")
+    if storage is None:
+        raise ParameterError("the upload must be a multipart form with a field 'file'", "file")
+    return storage
+
+
 # ---------------------------------------------------------------------------------------------
 # health and options
 
@@ -167,259 +182,6 @@ def options():
         channel_layouts=list(CHANNEL_LAYOUTS),
         mono_laws=list(MONO_LAWS), mp3_modes=list(MP3_MODES),
     ))
-
-
-# ---------------------------------------------------------------------------------------------
-# recordings
-
-def _public_recording(rec):
-    keys = ("id", "name", "demo", "rate_hz", "channels", "frames", "duration_s", "format",
-            "subtype", "size_bytes", "tags", "integrated_lufs", "loudness_range_lu",
-            "true_peak_dbtp", "sample_peak_dbfs", "analysis", "analysis_note", "analysis_error",
-            "created")
-    out = {k: rec.get(k) for k in keys}
-    out["audio_url"] = _url("recording_audio", id=rec["id"])
-    return out
-
-
-def _with_name(exc, generated, name, field="file"):
-    """The core's error about a stored file, told with the user's file name."""
-    message = exc.message.replace(os.path.basename(generated), name)
-    return type(exc)(message, field if exc.field in (None, "path") else exc.field)
-
-
-def _file_field():
-    """The multipart field ``file`` of the request."""
-    storage = request.files.get("file")
-    if storage is None:
-        raise ParameterError("the upload must be a multipart form with a field 'file'", "file")
-    return storage
-
-
-@bp.post("/recordings")
-def upload_recording():
-    try:
-        storage = _file_field()
-        name = display_name(storage.filename)
-        ext = upload_extension(storage.filename)
-        st = state()
-        target = st.store.upload_path(ext)
-        size = take_upload(request, storage, target)
-    finally:
-        discard_incoming(request)
-    if size == 0:
-        os.unlink(target)
-        raise AudioFileError(f"cannot read '{name}': the file is empty (0 bytes)", "file")
-    try:
-        info = media.probe(target)
-        if info.duration_s <= current_app.config["ANALYSE_SYNC_MAX_S"]:
-            meters = measure(target, info)
-        else:
-            meters = dict(analysis="pending")
-    except RateferryError as exc:
-        os.unlink(target)
-        raise _with_name(exc, target, name) from None
-    rec = get_db().add_recording(name=name, path=target, owned=True, demo=False,
-                                 probe=probe_figures(info), meters=meters)
-    if meters["analysis"] == "pending":
-        st.background.submit(_measure_later, st.store, rec["id"], target, info, name)
-    return _json(_public_recording(rec), 201)
-
-
-def _measure_later(store, recording_id, path, info, name):
-    try:
-        meters = measure(path, info)
-    except RateferryError as exc:
-        err = _with_name(exc, path, name)
-        meters = dict(analysis="failed", analysis_error=dict(message=err.message,
-                                                             field=err.field))
-    with store.open() as db:
-        db.update_meters(recording_id, meters)
-
-
-@bp.get("/recordings")
-def list_recordings():
-    return _json(dict(recordings=[_public_recording(r) for r in get_db().list_recordings()]))
-
-
-@bp.get("/recordings/<recording_id>")
-def get_recording(recording_id):
-    return _json(_public_recording(recording_or_404(recording_id)))
-
-
-@bp.get("/recordings/<recording_id>/audio")
-def recording_audio(recording_id):
-    rec = recording_file_or_410(recording_or_404(recording_id))
-    return send_file(rec["path"], mimetype=_MIMETYPES.get(rec["format"],
-                                                          "application/octet-stream"),
-                     conditional=True, download_name=rec["name"])
-
-
-@bp.get("/recordings/<recording_id>/overview")
-def recording_overview(recording_id):
-    from webapp.overview import DEFAULT_COLUMNS, overview
-    rec = recording_or_404(recording_id)
-    raw = request.args.get("columns", str(DEFAULT_COLUMNS))
-    try:
-        columns = int(raw)
-    except ValueError:
-        raise ParameterError(f"columns must be a whole number, got {raw!r}", "columns") from None
-    body, cached = state().cache.memo("overview", (rec["id"], columns),
-                                      lambda: jsonable(overview(rec["path"], columns=columns)))
-    return _json(dict(body, recording_id=rec["id"], cached=cached), clean=True)
-
-
-@bp.delete("/recordings/<recording_id>")
-def delete_recording(recording_id):
-    rec = recording_or_404(recording_id)
-    if rec["demo"]:
-        raise ApiError(409, "the demo recording can't be deleted", "recording_id")
-    db = get_db()
-    if any(c["status"] in ACTIVE_STATUSES for c in db.list_conversions(recording_id=rec["id"])):
-        raise ApiError(409, "the recording has a conversion in progress; cancel it first",
-                       "recording_id")
-    db.delete_recording(rec["id"])
-    return _json(dict(deleted=rec["id"]))
-
-
-# ---------------------------------------------------------------------------------------------
-# designs, audits, spectra
-
-def _store_design(spec, fs_in, fs_out, figures):
-    return get_db().put_design(key=design_key(spec, fs_in, fs_out), fs_in=fs_in,
-                               fs_out=fs_out, spec=spec.to_dict(), figures=jsonable(figures))
-
-
-def _design_body(spec, fs_in, fs_out, design_id, want_plans, t0):
-    cache = state().cache
-    cache.hold_plans()
-    view, cached = cache.view(spec, fs_in, fs_out)
-    if design_id is None:
-        design_id = _store_design(spec, fs_in, fs_out, view["figures"])
-    body = dict(id=design_id)
-    body.update(view)
-    body["plans_url"] = _url("design_plans", id=design_id)
-    if want_plans:
-        # the plans start only now, so they don't slow the design itself down
-        plans, plans_cached = _plans_or_error(cache.plans_async(spec, fs_in, fs_out))
-        cached = cached and plans_cached
-        body["plans"] = plans
-    body["timing"] = dict(design_ms=view["figures"]["design_ms"],
-                          total_ms=(time.perf_counter() - t0) * 1000.0, cached=cached)
-    return body
-
-
-def _plans_or_error(future):
-    try:
-        return future.result()
-    except RateferryError as exc:
-        return dict(single=None, options=[], chosen=None,
-                    error=dict(message=exc.message, field=exc.field)), False
-
-
-def _bool(data, name, default):
-    value = data.get(name, default)
-    if not isinstance(value, bool):
-        raise ParameterError(f"{name} must be true or false, got {value!r}", name)
-    return value
-
-
-@bp.post("/estimates")
-def estimate_design():
-    """What a design would cost, from the order formulas, before designing it."""
-    data = json_body()
-    fs_in = None
-    if data.get("recording_id") is not None:
-        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
-    spec, fs_in, fs_out, _ = spec_input(data, fs_in=fs_in)
-    return _json(design_estimate(spec, fs_in, fs_out))
-
-
-@bp.post("/designs")
-def create_design():
-    t0 = time.perf_counter()
-    data = json_body()
-    fs_in = None
-    if data.get("recording_id") is not None:
-        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=fs_in)
-    want = _bool(data, "plans", True)
-    return _plans_after(_json(_design_body(spec, fs_in, fs_out, design_id, want, t0), clean=True),
-                        want, spec, fs_in, fs_out)
-
-
-@bp.get("/designs/<design_id>")
-def get_design(design_id):
-    t0 = time.perf_counter()
-    spec, fs_in, fs_out, design_id = spec_input({"design_id": design_id})
-    want = request.args.get("plans", "true").lower() not in ("0", "false", "no")
-    return _plans_after(_json(_design_body(spec, fs_in, fs_out, design_id, want, t0), clean=True),
-                        want, spec, fs_in, fs_out)
-
-
-def _plans_after(response, want_plans, spec, fs_in, fs_out):
-    """Without the plans in the body, start them once the response has gone out and the
-    designs have rested (live edits: each would take the second core for half a second while
-    the page draws and the next design is made); GET /api/designs/<id>/plans starts them at
-    once if they are not ready."""
-    if not want_plans:
-        cache = state().cache
-        response.call_on_close(lambda: cache.plans_after_rest(spec, fs_in, fs_out))
-    return response
-
-
-@bp.get("/designs/<design_id>/plans")
-def get_design_plans(design_id):
-    t0 = time.perf_counter()
-    spec, fs_in, fs_out, design_id = spec_input({"design_id": design_id})
-    plans, cached = _plans_or_error(state().cache.plans_async(spec, fs_in, fs_out))
-    return _json(dict(id=design_id, plans=plans,
-                      timing=dict(total_ms=(time.perf_counter() - t0) * 1000.0, cached=cached)))
-
-
-@bp.post("/audits")
-def create_audit():
-    t0 = time.perf_counter()
-    data = json_body()
-    fs_in = None
-    if data.get("recording_id") is not None:
-        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=fs_in)
-    dither = choice(data, "dither", DITHERS, default="none")
-    seed = integer(data, "seed", default=0, low=0, high=2**63 - 1)
-    from webapp.dsp.audit import audit
-    cache = state().cache
-    plan = cache.route_plan(spec, fs_in, fs_out)
-    if design_id is None:
-        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
-    figures, cached = cache.memo("audit", (spec, fs_in, fs_out, dither, seed),
-                                 lambda: jsonable(audit(plan, dither=dither,
-                                                        seed=seed).figures()))
-    return _json(dict(design_id=design_id, figures=figures,
-                      timing=dict(audit_ms=(time.perf_counter() - t0) * 1000.0, cached=cached)))
-
-
-@bp.post("/spectra")
-def create_spectra():
-    data = json_body()
-    rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
-    max_s = current_app.config["EXCERPT_MAX_S"]
-    start_s = number(data, "start_s", low=0.0, unit="s")
-    length_s = number(data, "length_s", low=0.0, high=max_s, unit="s")
-    log_axis = _bool(data, "log_axis", False)
-    cache = state().cache
-    plan = cache.route_plan(spec, fs_in, fs_out)
-    if design_id is None:
-        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
-    info = media.probe(rec["path"])
-    view, cached = cache.memo(
-        "spectra", (rec["id"], spec, fs_in, fs_out, start_s, length_s, log_axis),
-        lambda: figures.spectra_view(rec["path"], info, plan, start_s=start_s,
-                                      length_s=length_s, log_axis=log_axis, max_length_s=max_s))
-    body = dict(view, design_id=design_id, recording_id=rec["id"],
-                meets_mask=bool(plan.meets_mask), cached=cached)
-    return _json(body)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -695,45 +457,6 @@ def conversion_recipe(conversion_id):
 
 
 # ---------------------------------------------------------------------------------------------
-# blind trials
-
-@bp.post("/conversions/<conversion_id>/blind_trials")
-def add_blind_trials(conversion_id):
-    conv = conversion_or_404(conversion_id)
-    data = json_body()
-    trials = integer(data, "trials", low=1, high=10000, required=True)
-    correct = integer(data, "correct", low=0, high=trials, required=True)
-    answers = data.get("answers") or []
-    if not isinstance(answers, list) or len(answers) > trials:
-        raise ParameterError(f"answers must be a list of at most {trials} items", "answers")
-    for i, a in enumerate(answers):
-        if not isinstance(a, dict) or a.get("x") not in ("A", "B") \
-                or a.get("answer") not in ("A", "B"):
-            raise ParameterError(f"answers[{i}] must be {{\"x\": \"A\"|\"B\", \"answer\": "
-                                 f"\"A\"|\"B\"}}, got {a!r}", "answers")
-    if len(answers) == trials:
-        right = sum(a["x"] == a["answer"] for a in answers)
-        if right != correct:
-            raise ParameterError(f"correct must equal the right answers in answers ({right}), "
-                                 f"got {correct}", "correct")
-    note = data.get("note") or ""
-    if not isinstance(note, str) or len(note) > 2000:
-        raise ParameterError("note must be text of at most 2000 characters", "note")
-    row = get_db().add_blind_trial(conversion_id=conv["id"], trials=trials, correct=correct,
-                                   p_value=listening.binomial_tail(correct, trials),
-                                   answers=[dict(x=a["x"], answer=a["answer"]) for a in answers],
-                                   note=note)
-    return _json(row, 201)
-
-
-@bp.get("/conversions/<conversion_id>/blind_trials")
-def list_blind_trials(conversion_id):
-    conv = conversion_or_404(conversion_id)
-    return _json(dict(blind_trials=get_db().list_blind_trials(conv["id"]),
-                      summary=_blind_summary(conv["id"])))
-
-
-# ---------------------------------------------------------------------------------------------
 # recipes
 
 @bp.post("/recipes")
@@ -747,60 +470,6 @@ def upload_recipe():
                       delivery=recipe.delivery.to_dict(), block_frames=recipe.block_frames,
                       source_name=recipe.source_name, source_sha256=recipe.source_sha256,
                       output_sha256=recipe.output_sha256, recipe=recipe.to_dict()))
-
-
-# ---------------------------------------------------------------------------------------------
-# listening renditions
-
-@bp.post("/renditions")
-def create_renditions():
-    data = json_body()
-    st = state()
-    max_s = current_app.config["EXCERPT_MAX_S"]
-    start_s = number(data, "start_s", default=0.0, low=0.0, unit="s")
-    length_s = number(data, "length_s", default=10.0, low=listening.RENDITION_MIN_S, high=max_s,
-                      unit="s")
-    rate_hz = rate(data, "rate_hz")
-    sample_format = choice(data, "sample_format", ("float32", "pcm24"), default="float32")
-    conversion_id = data.get("conversion_id")
-    if conversion_id is not None:
-        conv = _done_or_409(conversion_or_404(conversion_id))
-        rec = recording_file_or_410(recording_or_404(conv["recording_id"]))
-        plan = st.cache.conversion_plan(spec_module.Spec(**conv["spec"]), conv["fs_in"],
-                                        conv["fs_out"])
-        converted = dict(path=conv["output_path"], plan=plan)
-        conversion_id = conv["id"]
-    else:
-        rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
-        spec, fs_in, fs_out, _ = spec_input(data, fs_in=rec["rate_hz"])
-        converted = dict(plan=st.cache.conversion_plan(spec, fs_in, fs_out))
-    rid = new_id()
-    figures, paths = listening.make_renditions(
-        source_path=rec["path"], probe=media.probe(rec["path"]), converted=converted,
-        start_s=start_s, length_s=length_s, rate_hz=rate_hz, cache=st.cache,
-        folder=st.store.renditions, rendition_id=rid, sample_format=sample_format,
-        max_length_s=max_s)
-    get_db().add_rendition(rendition_id=rid, recording_id=rec["id"], conversion_id=conversion_id,
-                           figures=jsonable(figures), paths=paths)
-    body = dict(id=rid, recording_id=rec["id"], conversion_id=conversion_id)
-    body.update(figures)
-    for kind in RENDITION_KINDS:
-        body[kind] = dict(body[kind], url=_url("rendition_audio", id=rid, kind=kind))
-    return _json(body, 201)
-
-
-@bp.get("/renditions/<rendition_id>/<kind>")
-def rendition_audio(rendition_id, kind):
-    row = get_db().get_rendition(rendition_id)
-    if row is None:
-        raise ApiError(404, f"rendition {rendition_id!r} doesn't exist", "rendition_id")
-    if kind not in RENDITION_KINDS:
-        raise ApiError(404, f"kind must be one of {', '.join(RENDITION_KINDS)}, got {kind!r}",
-                       "kind")
-    path = row["paths"].get(kind)
-    if not path or not os.path.isfile(path):
-        raise ApiError(404, "the rendition was removed (cleared as old)", "rendition_id")
-    return send_file(path, mimetype="audio/wav", conditional=True)
 
 
 # ---------------------------------------------------------------------------------------------
