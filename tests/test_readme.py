@@ -57,6 +57,19 @@ def _inputs(folder):
         for name in names:
             sf.write(folder / sub / name, tone[:44100], 44100, subtype="PCM_16")
     (folder / "takes.csv").write_text("source\nseason2/ep1.wav\nseason2/ep2.wav\n")
+    # the drift examples: one event on two recorders, the guest's clock +40 ppm fast and started
+    # 0.35 s late (scipy.signal.resample_poly with the exact ratio 25001/25000)
+    from scipy import signal
+    fs = 16000
+    n = 40 * fs
+    voice = signal.lfilter([1.0], [1.0, -0.95], rng.standard_normal(n)) * 0.02
+    voice *= (np.sin(2 * np.pi * 0.3 * np.arange(n) / fs) > -0.2)     # pauses between phrases
+    guest = signal.resample_poly(voice, 25001, 25000)
+    guest = np.concatenate([np.zeros(int(0.35 * fs)), guest])[:n]
+    sf.write(folder / "call.wav", voice + 0.0005 * rng.standard_normal(n), fs, subtype="PCM_16")
+    sf.write(folder / "guest.wav", 0.5 * guest + 0.0005 * rng.standard_normal(n), fs,
+             subtype="PCM_16")
+    (folder / "aligned").mkdir()
     from webapp import jobs
     from webapp.recipe import write_recipe
     result = jobs.convert_file(folder / "archive" / "ep12.wav", folder / "ep12_48k.wav",
