@@ -29,7 +29,8 @@ def binomial_tail(correct, trials):
     """P(at least ``correct`` right of ``trials`` by guessing, p = 1/2): the one-sided
     binomial tail. Summed exactly in integers up to 1000 trials; beyond, the regularised
     incomplete beta function I_1/2(k, n - k + 1), which equals that tail (Abramowitz & Stegun
-    26.5.24, from memory; the tests check it against scipy.stats.binomtest) and keeps a request of thousands of trials fast."""
+    26.5.24, from memory; the tests check it against scipy.stats.binomtest) and keeps a
+    request of thousands of trials fast."""
     correct, trials = int(correct), int(trials)
     if correct <= 0:
         return 1.0
