@@ -23,6 +23,7 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from webapp import media
+from webapp.threads import Stages, prefetch
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.loudness import MIN_LOUDNESS_RATE_HZ, LoudnessMeter
 from webapp.dsp.overs import FULL_SCALE, TruePeakOvers, frame_peaks, full_scale_frames
@@ -103,26 +104,30 @@ def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOL
     loud = LoudnessMeter(rate_hz=rate, channels=info.channels) \
         if rate >= MIN_LOUDNESS_RATE_HZ else None
     pos = 0
+    found = []       # the true-peak search runs on its own thread, beside the reader
     # one BLAS thread for the interpolator's small products (more only fight over the cores)
     with threadpool_limits(limits=1, user_api="blas"):
-        for block in media.read_blocks(path, blocksize=_BLOCK_FRAMES):
-            m = block.shape[0]
-            col = (np.arange(pos, pos + m, dtype=np.int64) * n) // frames
-            starts = np.flatnonzero(np.r_[True, col[1:] != col[:-1]])
-            cols = col[starts]                     # distinct and ascending within the block
-            lo, hi = _frame_range(block)
-            low[cols] = np.minimum(low[cols], np.minimum.reduceat(lo, starts))
-            high[cols] = np.maximum(high[cols], np.maximum.reduceat(hi, starts))
-            peaks = frame_peaks(block)
-            at_fs = np.flatnonzero(full_scale_frames(block, peaks))
-            clipped.add(at_fs + pos, col[at_fs])
-            over = finder.process(block)
-            overs.add(over, (over * n) // frames)
-            if loud is not None:
-                loud.process(block)
-            pos += m
-        over = finder.finish()
-    overs.add(over, (over * n) // frames)
+        with Stages() as stages:
+            search = stages.add(lambda block: found.append(finder.process(block)),
+                                "rateferry-overview-overs")
+            for block in prefetch(media.read_blocks(path, blocksize=_BLOCK_FRAMES)):
+                search.submit(block)
+                m = block.shape[0]
+                col = (np.arange(pos, pos + m, dtype=np.int64) * n) // frames
+                starts = np.flatnonzero(np.r_[True, col[1:] != col[:-1]])
+                cols = col[starts]                     # distinct and ascending within the block
+                lo, hi = _frame_range(block)
+                low[cols] = np.minimum(low[cols], np.minimum.reduceat(lo, starts))
+                high[cols] = np.maximum(high[cols], np.maximum.reduceat(hi, starts))
+                peaks = frame_peaks(block)
+                at_fs = np.flatnonzero(full_scale_frames(block, peaks))
+                clipped.add(at_fs + pos, col[at_fs])
+                if loud is not None:
+                    loud.process(block)
+                pos += m
+        found.append(finder.finish())
+    for over in found:
+        overs.add(over, (over * n) // frames)
     edges = (np.arange(n + 1, dtype=np.int64) * frames) // n
     return dict(
         rate_hz=rate, channels=info.channels, frames=frames, duration_s=frames / rate,

@@ -19,8 +19,6 @@ everything streams in blocks. Every decision is made by :mod:`webapp.jobs` and
 from dataclasses import asdict, dataclass, field
 import math
 import os
-import queue
-import threading
 import time
 
 import numpy as np
@@ -28,6 +26,7 @@ from threadpoolctl import threadpool_limits
 
 from . import __version__
 from . import media, riff, riffchunks
+from .threads import Stages, prefetch
 from .dsp.channels import apply_layout
 from .dsp.dither import Quantizer
 from .dsp.limiter import TruePeakLimiter
@@ -152,125 +151,6 @@ def _finite(v):
     return v if math.isfinite(v) else None
 
 
-_STOP = object()
-
-
-class _Background:
-    """One worker thread applying ``fn`` to items in order, through a bounded queue.
-
-    numpy, scipy and libsndfile release the GIL in their inner loops, so the meters, the
-    encoder and the converter overlap on separate cores. The queue bounds memory; an error in
-    the worker is raised in the caller at the next submit or at finish.
-    """
-
-    def __init__(self, fn, *, depth=4, name="rateferry-stage"):
-        self._fn = fn
-        self._q = queue.Queue(maxsize=depth)
-        self._error = None
-        self._thread = threading.Thread(target=self._run, name=name, daemon=True)
-        self._thread.start()
-
-    def _run(self):
-        while True:
-            item = self._q.get()
-            if item is _STOP:
-                return
-            if self._error is None:
-                try:
-                    self._fn(item)
-                except BaseException as exc:   # handed to the caller
-                    self._error = exc
-
-    def submit(self, item):
-        if self._error is not None:
-            raise self._error
-        self._q.put(item)
-
-    def finish(self):
-        self._q.put(_STOP)
-        self._thread.join()
-        if self._error is not None:
-            raise self._error
-
-    def abort(self):
-        self._q.put(_STOP)
-        self._thread.join()
-
-
-class _Stages:
-    """Background stages that finish (or abort) together, the last added first."""
-
-    def __init__(self):
-        self._stages = []
-
-    def add(self, fn, name):
-        stage = _Background(fn, name=name)
-        self._stages.append(stage)
-        return stage
-
-    def __enter__(self):
-        return self
-
-    def __exit__(self, exc_type, exc, tb):
-        stages, self._stages = self._stages[::-1], []
-        if exc_type is not None:
-            for stage in stages:
-                stage.abort()
-            return False
-        errors = []
-        for stage in stages:
-            try:
-                stage.finish()
-            except BaseException as err:
-                errors.append(err)
-        if errors:
-            raise errors[0]
-        return False
-
-
-def _prefetch(blocks, *, depth=3):
-    """Iterate ``blocks`` (a generator) in a reader thread, ``depth`` blocks ahead."""
-    q = queue.Queue(maxsize=depth)
-    stop = threading.Event()
-
-    def run():
-        try:
-            for item in blocks:
-                while not stop.is_set():
-                    try:
-                        q.put(("block", item), timeout=0.1)
-                        break
-                    except queue.Full:
-                        continue
-                if stop.is_set():
-                    break
-            q.put(("end", None))
-        except BaseException as exc:
-            q.put(("error", exc))
-        finally:
-            blocks.close()
-
-    thread = threading.Thread(target=run, name="rateferry-reader", daemon=True)
-    thread.start()
-    try:
-        while True:
-            kind, item = q.get()
-            if kind == "block":
-                yield item
-            elif kind == "end":
-                return
-            else:
-                raise item
-    finally:
-        stop.set()
-        while thread.is_alive():
-            try:
-                q.get(timeout=0.1)
-            except queue.Empty:
-                pass
-        thread.join()
-
-
 def short_source_warnings(source, frames_read, frames_declared):
     """A warning when the source held fewer frames than its header declares (a cut-off
     recording: libsndfile trims its frame count to the data there, without an error, so the
@@ -361,7 +241,7 @@ class _Progress:
 
 def _source_blocks(job, layout, cancel, progress, source_stage=None):
     """The source in blocks (the layout applied), with progress and cancellation."""
-    for block in _prefetch(media.read_blocks(job.source, blocksize=job.block_frames)):
+    for block in prefetch(media.read_blocks(job.source, blocksize=job.block_frames)):
         _check_cancel(cancel)
         if source_stage is not None:
             source_stage.submit(block)
@@ -372,7 +252,7 @@ def _source_blocks(job, layout, cancel, progress, source_stage=None):
 def _measure_pass(job, source_meters, cancel, progress):
     """First pass: the delivered layout's converted signal at unity gain, measured."""
     conv, first = _converter(job), Meters(job.fs_out, job.channels_out)
-    with _Stages() as stages:
+    with Stages() as stages:
         source_stage = stages.add(source_meters.process, "rateferry-source-meters")
         first_stage = stages.add(first.process, "rateferry-output-meters")
         for block in _source_blocks(job, _layout(job), cancel, progress, source_stage):
@@ -442,7 +322,7 @@ def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunk
                                 source=job.source, chunks=chunks, check=check)
     writer.open()
     try:
-        with _Stages() as stages:
+        with Stages() as stages:
             write_stage = stages.add(writer.write, "rateferry-writer")
             meter_stage = stages.add(out_meters.process, "rateferry-output-meters")
             quant_stage = stages.add(quantize, "rateferry-quantizer") if quant else None

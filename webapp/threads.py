@@ -1,0 +1,126 @@
+"""Background stages for streaming work: numpy, scipy, BLAS and libsndfile release the GIL in
+their inner loops, so a reader, a converter, meters and a writer on their own threads overlap on
+separate cores. Bounded queues keep memory flat; an error in a stage is raised in the caller."""
+
+import queue
+import threading
+
+__all__ = ["Background", "Stages", "prefetch"]
+
+_STOP = object()
+
+
+class Background:
+    """One worker thread applying ``fn`` to items in order, through a bounded queue.
+
+    numpy, scipy and libsndfile release the GIL in their inner loops, so the meters, the
+    encoder and the converter overlap on separate cores. The queue bounds memory; an error in
+    the worker is raised in the caller at the next submit or at finish.
+    """
+
+    def __init__(self, fn, *, depth=4, name="rateferry-stage"):
+        self._fn = fn
+        self._q = queue.Queue(maxsize=depth)
+        self._error = None
+        self._thread = threading.Thread(target=self._run, name=name, daemon=True)
+        self._thread.start()
+
+    def _run(self):
+        while True:
+            item = self._q.get()
+            if item is _STOP:
+                return
+            if self._error is None:
+                try:
+                    self._fn(item)
+                except BaseException as exc:   # handed to the caller
+                    self._error = exc
+
+    def submit(self, item):
+        if self._error is not None:
+            raise self._error
+        self._q.put(item)
+
+    def finish(self):
+        self._q.put(_STOP)
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+
+    def abort(self):
+        self._q.put(_STOP)
+        self._thread.join()
+
+
+class Stages:
+    """Background stages that finish (or abort) together, the last added first."""
+
+    def __init__(self):
+        self._stages = []
+
+    def add(self, fn, name):
+        stage = Background(fn, name=name)
+        self._stages.append(stage)
+        return stage
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, exc_type, exc, tb):
+        stages, self._stages = self._stages[::-1], []
+        if exc_type is not None:
+            for stage in stages:
+                stage.abort()
+            return False
+        errors = []
+        for stage in stages:
+            try:
+                stage.finish()
+            except BaseException as err:
+                errors.append(err)
+        if errors:
+            raise errors[0]
+        return False
+
+
+def prefetch(blocks, *, depth=3):
+    """Iterate ``blocks`` (a generator) in a reader thread, ``depth`` blocks ahead."""
+    q = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+
+    def run():
+        try:
+            for item in blocks:
+                while not stop.is_set():
+                    try:
+                        q.put(("block", item), timeout=0.1)
+                        break
+                    except queue.Full:
+                        continue
+                if stop.is_set():
+                    break
+            q.put(("end", None))
+        except BaseException as exc:
+            q.put(("error", exc))
+        finally:
+            blocks.close()
+
+    thread = threading.Thread(target=run, name="rateferry-reader", daemon=True)
+    thread.start()
+    try:
+        while True:
+            kind, item = q.get()
+            if kind == "block":
+                yield item
+            elif kind == "end":
+                return
+            else:
+                raise item
+    finally:
+        stop.set()
+        while thread.is_alive():
+            try:
+                q.get(timeout=0.1)
+            except queue.Empty:
+                pass
+        thread.join()
