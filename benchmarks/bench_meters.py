@@ -32,7 +32,6 @@ from threadpoolctl import threadpool_limits
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 from webapp.dsp.design import design  # noqa: E402
-from webapp.dsp.dither import Quantizer  # noqa: E402
 from webapp.dsp.limiter import TruePeakLimiter  # noqa: E402
 from webapp.dsp.loudness import LoudnessMeter, TruePeakMeter  # noqa: E402
 from webapp.dsp.oversample import prototype  # noqa: E402
@@ -114,18 +113,11 @@ def figures(seconds, block):
             best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), x, block)) * per_hour),
         row("true-peak meter 16x, full-scale sine (worst case)",
             best_of(3, streamed(lambda: TruePeakMeter(rate_hz=RATE_HZ, channels=2), sine, block)) * per_hour),
-        row("true-peak limiter, programme pushed 12 dB",
-            best_of(3, limited(x * 10 ** (12 / 20), block)) * per_hour),
-        row("true-peak limiter, programme as it is", best_of(3, limited(x, block)) * per_hour),
     ]
     short = x[: int(RATE_HZ * min(seconds, 5.0))]
     rows.append(row("true peak, plain scipy upfirdn 16x (same FIR)",
                     best_of(1, plain_true_peak(short)) * 3600.0 * RATE_HZ / short.shape[0]))
-    for dither in ("tpdf", "shaped"):
-        quantizer = Quantizer(bits="16", dither=dither, channels=2, rate_hz=RATE_HZ)
-        spent = best_of(1, lambda q=quantizer: q.process(short))
-        rows.append(row(f"16-bit quantiser, dither={dither}", spent * 3600.0 * RATE_HZ / short.shape[0]))
-    return rows
+    return rows     # the limiter and the quantisers: benchmarks/bench_limiter.py
 
 
 def main(argv=None):
@@ -135,7 +127,7 @@ def main(argv=None):
     args = parser.parse_args(argv)
     with threadpool_limits(limits=1, user_api="blas"):
         rows = figures(args.seconds, args.block)
-    return dict(title=f"meters, limiter and quantiser, stereo {RATE_HZ} Hz, {args.seconds:g} s of "
+    return dict(title=f"meters, stereo {RATE_HZ} Hz, {args.seconds:g} s of "
                       f"audio, blocks of {args.block} frames, BLAS 1 thread, seconds per hour of audio",
                 figures=rows)
 

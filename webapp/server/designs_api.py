@@ -53,14 +53,20 @@ def _plans_or_error(future):
 
 
 
+def _spec_of(data):
+    """(spec, fs_in, fs_out, design_id) of a request; fs_in from its recording when it names
+    one."""
+    fs_in = None
+    if data.get("recording_id") is not None:
+        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
+    return spec_input(data, fs_in=fs_in)
+
+
 @bp.post("/estimates")
 def estimate_design():
     """What a design would cost, from the order formulas, before designing it."""
     data = json_body()
-    fs_in = None
-    if data.get("recording_id") is not None:
-        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
-    spec, fs_in, fs_out, _ = spec_input(data, fs_in=fs_in)
+    spec, fs_in, fs_out, _ = _spec_of(data)
     return _json(design_estimate(spec, fs_in, fs_out))
 
 
@@ -68,10 +74,7 @@ def estimate_design():
 def create_design():
     t0 = time.perf_counter()
     data = json_body()
-    fs_in = None
-    if data.get("recording_id") is not None:
-        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=fs_in)
+    spec, fs_in, fs_out, design_id = _spec_of(data)
     want = _bool(data, "plans", True)
     return _plans_after(_json(_design_body(spec, fs_in, fs_out, design_id, want, t0), clean=True),
                         want, spec, fs_in, fs_out)
@@ -110,10 +113,7 @@ def get_design_plans(design_id):
 def create_audit():
     t0 = time.perf_counter()
     data = json_body()
-    fs_in = None
-    if data.get("recording_id") is not None:
-        fs_in = recording_or_404(data["recording_id"])["rate_hz"]
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=fs_in)
+    spec, fs_in, fs_out, design_id = _spec_of(data)
     dither = choice(data, "dither", DITHERS, default="none")
     seed = integer(data, "seed", default=0, low=0, high=2**63 - 1)
     from webapp.dsp.audit import audit
