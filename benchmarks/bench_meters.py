@@ -32,7 +32,6 @@ from threadpoolctl import threadpool_limits
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 from webapp.dsp.design import design  # noqa: E402
-from webapp.dsp.limiter import TruePeakLimiter  # noqa: E402
 from webapp.dsp.loudness import LoudnessMeter, TruePeakMeter  # noqa: E402
 from webapp.dsp.oversample import prototype  # noqa: E402
 from webapp.dsp.polyphase import make_converter  # noqa: E402
@@ -76,15 +75,6 @@ def conversion(x, block):
         for i in range(0, x.shape[0], block):
             conv.process(x[i:i + block])
         conv.flush()
-    return run
-
-
-def limited(x, block):
-    def run():
-        limiter = TruePeakLimiter(rate_hz=RATE_HZ, channels=2, ceiling_dbtp=-1.0)
-        for i in range(0, x.shape[0], block):
-            limiter.process(x[i:i + block])
-        limiter.flush()
     return run
 
 
