@@ -146,7 +146,7 @@ def test_a_worker_killed_during_the_batch_loses_nothing(dask_cluster, sources, r
             victim.kill()
         victim.wait()
     assert batch.returncode == 4, err
-    assert outputs(tmp_path) == refs
+    assert outputs(tmp_path) == refs, err[-3000:]
     assert not [p for p in os.listdir(tmp_path) if ".partial" in p]
     rows = report_rows(tmp_path)
     assert sum(r["state"] == "done" for r in rows.values()) == 12
