@@ -377,3 +377,24 @@ def test_same_rate_route_with_transition_aliasing_is_designed_not_500(client, he
                     headers=headers)
     assert _is_400_naming(r, "stopband_hz")
     assert "at most half the filter's rate (24000 Hz" in r.get_json()["error"]["message"]
+
+
+def test_a_recording_deleted_during_a_request_is_410_naming_it(app, tmp_path):
+    """Found by the 30-minute soak: one client deleted a recording while another's spectra were
+    being computed; the answer named the stored file. Now: 410 naming the recording."""
+    from webapp.dsp.errors import AudioFileError
+    from webapp.server.errors import ApiError
+    from webapp.server.params import while_on_disk
+    path = tmp_path / "stored.wav"
+    sf.write(path, [0.0] * 100, 8000)
+    rec = {"path": str(path), "name": "Harbour take.wav"}
+    with app.app_context():
+        try:
+            with while_on_disk(rec):
+                path.unlink()                 # the other request's delete
+                raise AudioFileError("cannot open 'stored.wav': no such file", "path")
+        except ApiError as exc:
+            assert exc.status == 410 and "'Harbour take.wav' was deleted" in exc.message
+            assert exc.field == "recording_id"
+        else:
+            raise AssertionError("no 410")

@@ -12,7 +12,8 @@ from webapp.designs import design_estimate
 
 from .api import _bool, _json, _store_design, _url
 from .db import state
-from .params import (choice, integer, json_body, number, recording_file_or_410, recording_or_404, spec_input)
+from .params import (choice, integer, json_body, number, recording_file_or_410, recording_or_404,
+                     spec_input, while_on_disk)
 
 __all__ = ["bp"]
 
@@ -141,11 +142,13 @@ def create_spectra():
     plan = cache.route_plan(spec, fs_in, fs_out)
     if design_id is None:
         design_id = _store_design(spec, fs_in, fs_out, plan.figures())
-    info = media.probe(rec["path"])
-    view, cached = cache.memo(
-        "spectra", (rec["id"], spec, fs_in, fs_out, start_s, length_s, log_axis),
-        lambda: figures.spectra_view(rec["path"], info, plan, start_s=start_s,
-                                      length_s=length_s, log_axis=log_axis, max_length_s=max_s))
+    with while_on_disk(rec):
+        info = media.probe(rec["path"])
+        view, cached = cache.memo(
+            "spectra", (rec["id"], spec, fs_in, fs_out, start_s, length_s, log_axis),
+            lambda: figures.spectra_view(rec["path"], info, plan, start_s=start_s,
+                                         length_s=length_s, log_axis=log_axis,
+                                         max_length_s=max_s))
     body = dict(view, design_id=design_id, recording_id=rec["id"],
                 meets_mask=bool(plan.meets_mask), cached=cached)
     return _json(body)

@@ -14,7 +14,7 @@ from .api import RENDITION_KINDS, _blind_summary, _done_or_409, _json, _url
 from .db import get_db, state
 from .errors import ApiError
 from .params import (choice, conversion_or_404, integer, json_body, number, rate,
-                     recording_file_or_410, recording_or_404, spec_input)
+                     recording_file_or_410, recording_or_404, spec_input, while_on_disk)
 
 __all__ = ["bp"]
 
@@ -86,11 +86,12 @@ def create_renditions():
         spec, fs_in, fs_out, _ = spec_input(data, fs_in=rec["rate_hz"])
         converted = dict(plan=st.cache.conversion_plan(spec, fs_in, fs_out))
     rid = new_id()
-    figures, paths = listening.make_renditions(
-        source_path=rec["path"], probe=media.probe(rec["path"]), converted=converted,
-        start_s=start_s, length_s=length_s, rate_hz=rate_hz, cache=st.cache,
-        folder=st.store.renditions, rendition_id=rid, sample_format=sample_format,
-        max_length_s=max_s)
+    with while_on_disk(rec):
+        figures, paths = listening.make_renditions(
+            source_path=rec["path"], probe=media.probe(rec["path"]), converted=converted,
+            start_s=start_s, length_s=length_s, rate_hz=rate_hz, cache=st.cache,
+            folder=st.store.renditions, rendition_id=rid, sample_format=sample_format,
+            max_length_s=max_s)
     get_db().add_rendition(rendition_id=rid, recording_id=rec["id"], conversion_id=conversion_id,
                            figures=jsonable(figures), paths=paths)
     body = dict(id=rid, recording_id=rec["id"], conversion_id=conversion_id)

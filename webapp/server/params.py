@@ -4,11 +4,12 @@ Every helper raises :class:`ParameterError` (400) or :class:`ApiError` naming th
 value, so a view never sees a half-parsed request.
 """
 
+from contextlib import contextmanager
 import os
 
 from flask import request
 
-from webapp.dsp.errors import ParameterError
+from webapp.dsp.errors import ParameterError, RateferryError
 from webapp.dsp.numbers import finite_number, shown, whole_number
 from webapp.jsontools import loads_checked
 from webapp.dsp.rates import validate_rate
@@ -18,7 +19,7 @@ from .db import get_db
 from .errors import ApiError
 
 __all__ = ["json_body", "number", "integer", "choice", "rate", "spec_input", "recording_or_404",
-           "recording_file_or_410",
+           "recording_file_or_410", "while_on_disk",
            "conversion_or_404", "design_or_404"]
 
 
@@ -98,6 +99,19 @@ def recording_file_or_410(rec):
         raise ApiError(410, f"the audio of recording '{rec['name']}' is no longer on disk (it was "
                             "removed outside the app); upload it again", "recording_id")
     return rec
+
+
+@contextmanager
+def while_on_disk(rec):
+    """Around work on a recording's file: when the file goes away meanwhile (a recording
+    deleted by another request), answer 410 naming the recording, not the stored file."""
+    try:
+        yield rec
+    except RateferryError:
+        if not os.path.isfile(rec["path"]):
+            raise ApiError(410, f"the recording '{rec['name']}' was deleted while this request "
+                                "was working on it", "recording_id") from None
+        raise
 
 
 def conversion_or_404(conversion_id):
