@@ -1,7 +1,8 @@
 """Routes and masks.
 
-Rational factors are plain arithmetic (gcd); the worked values are listed in
-shared/REFERENCES.md (44.1 -> 48 kHz is 160/147, 96 -> 44.1 kHz 147/320, ...).
+Rational factors are plain arithmetic (gcd of the two rates): 44.1 -> 48 kHz is 160/147,
+96 -> 44.1 kHz 147/320, 44.1 -> 16 kHz 160/441, 48 -> 8 kHz 1/6; 44100 = 2^2 3^2 5^2 7^2 and
+48000 = 2^7 3 5^3.
 """
 
 import pytest
