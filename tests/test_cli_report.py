@@ -3,7 +3,7 @@ jsonschema library against webapp/schemas/convert-report.schema.json), numbers r
 they mean, `plans` naming the plan used, --quiet and --silent on every command, progress from
 tqdm on a terminal and one summary line otherwise.
 
-Outside checks: output length ceil(frames * up / down) (DESIGN.md's alignment rule, the rational
+Outside checks: output length ceil(frames * up / down) (the converter's alignment rule, the rational
 conversion's definition); the plan `plans` names is webapp.dsp.stages.choose_plan's, the one
 function that decides (compared, not recomputed); a sine of amplitude 0.5 peaks at
 20 log10(0.5) = -6.02 dBFS (physics).

@@ -1,8 +1,8 @@
 """The batch panel in a real browser (Playwright + Debian's chromium) at 1280 x 800.
 
 Checked against outside references: each file in the downloaded zip holds
-ceil(frames * up / down) frames (DESIGN.md, "Alignment"), with up/down the reduced ratio from
-fractions.Fraction (Python's standard library), and reads back through soundfile at the target
+ceil(frames * up / down) frames (the alignment rule in DEVELOPERS.md), with up/down the
+reduced ratio from fractions.Fraction (Python's standard library), and reads back through soundfile at the target
 rate; the zip is read with the standard library's zipfile.
 """
 

@@ -6,8 +6,8 @@ What is checked against something outside the page:
 * The automatic passband edge is passband_fraction (0.9 in the spoken_word_delivery preset) of the
   lower Nyquist, the stopband edge the lower Nyquist (the project's spec, webapp/dsp/spec.py,
   a common-practice default).
-* A converted file holds ceil(frames * up / down) frames (DESIGN.md, "Alignment"), with up/down
-  the reduced ratio from fractions.Fraction (Python's standard library).
+* A converted file holds ceil(frames * up / down) frames (the alignment rule in DEVELOPERS.md),
+  with up/down the reduced ratio from fractions.Fraction (Python's standard library).
 * The blind-trial p-value equals scipy.stats.binomtest(k, n, 0.5, alternative="greater")
   (scipy is our reference library).
 """

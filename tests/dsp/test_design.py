@@ -40,7 +40,7 @@ def test_kaiser_numtaps_equals_kaiserord(atten, width):
 
 
 def test_equiripple_estimates_worked_example():
-    # dp = 0.01, ds = 0.001, df = 0.05: Herrmann 50.25, Bellanger 53.33 (computed; REFERENCES.md)
+    # dp = 0.01, ds = 0.001, df = 0.05: Herrmann 50.25, Bellanger 53.33 (computed with the published formulas)
     # Both formulas give the filter order N (taps = N + 1); scipy.signal.remez met it at 54 taps.
     assert herrmann_numtaps(0.01, 0.001, 0.05) == pytest.approx(50.25, abs=0.05)
     assert bellanger_numtaps(0.01, 0.001, 0.05) == pytest.approx(53.33, abs=0.01)
@@ -84,7 +84,7 @@ def test_designs_meet_their_mask_when_measured_independently(fs_in, fs_out, name
 
 
 def test_kaiser_estimate_undershoots_and_the_design_grows_until_met():
-    # The window formula is approximate (REFERENCES.md: a 60 dB design at the estimated length
+    # The window formula is approximate (computed: a 60 dB design at the estimated length
     # measured -59.6 dB), so the loop must grow the filter and say how often it redesigned.
     d = design(Spec(method="kaiser", attenuation_db=120.0), 44100, 48000)
     assert d.method == "kaiser" and d.meets_mask
@@ -148,7 +148,7 @@ def test_huge_exact_banks_switch_to_the_arbitrary_path_and_say_why():
 
 
 def test_interpolation_phases_follow_the_error_bound():
-    # (w/P)^2/8 at w = 2 pi 0.45: P = 4096 gives about -144 dB (DESIGN.md, Smith & Gossett 1984)
+    # (w/P)^2/8 at w = 2 pi 0.45: P = 4096 gives about -144 dB (Smith & Gossett 1984; the linear-interpolation error bound)
     w = 2 * math.pi * 0.45
     assert 20 * math.log10((w / 4096) ** 2 / 8) == pytest.approx(-144.5, abs=0.5)
     p = interpolation_phases(0.45 * 48000, 48000, 120.0)

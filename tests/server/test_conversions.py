@@ -3,7 +3,7 @@ downloads, design sheets, recipes, blind trials.
 
 References: physics (a sine sampled at the new rate is the analytic sine at that rate, within
 the mask's passband ripple: |error| <= A (10^(ripple/20) - 1) plus the stopband floor); the
-output length rule ceil(frames * up / down) of DESIGN.md; soundfile reads every output back;
+output length rule ceil(frames * up / down) of the converter (DEVELOPERS.md); soundfile reads every output back;
 scipy.stats.binom is the reference for the blind-trial p-value.
 """
 

@@ -1,7 +1,7 @@
 """The exact polyphase bank laid out for BLAS: coefficient stacks over strided input windows.
 
 With prototype h (N taps at fs_in*L) and T = ceil(N/L) taps per phase, output n = qL + r with
-rM + D = a_r L + b_r is y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j] (see DESIGN.md).
+rM + D = a_r L + b_r is y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j] (the polyphase product, derived in webapp/dsp/polyphase.py).
 
 Layout
 ------

@@ -444,7 +444,7 @@ def integrated_loudness(x, rate_hz, *, weights=None):
 
 # BS.1770-4 Annex 2, example 48-tap interpolation filter for 4x over-sampling, as 4 phases x 12
 # taps; phase 3 is phase 0 reversed and phase 2 is phase 1 reversed (the prototype is
-# symmetric). Phase 0 is confirmed (the figures in REFERENCES.md); phases 1 and 2 are
+# symmetric). Phase 0 is confirmed (the figures of BS.1770-4 Annex 2); phases 1 and 2 are
 # from memory, matching several independent public copies of the table. Tap i of a
 # phase multiplies the input i samples back.
 _ANNEX2_PHASE0 = (0.0017089843750, 0.0109863281250, -0.0196533203125, 0.0332031250000,

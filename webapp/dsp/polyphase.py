@@ -10,7 +10,7 @@ Conventions
   of a whole signal of ``frames`` frames has ``ceil(frames * up / down)`` frames.
 * Positions are integers (block index q, residue r), never float times, so hours don't drift.
 
-The math (see DESIGN.md): with prototype h (N taps at fs_in*L) and T = ceil(N/L) taps per phase,
+The math: with prototype h (N taps at fs_in*L) and T = ceil(N/L) taps per phase,
 output n = qL + r, with p = rM + D = a_r L + b_r, is
     y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j].
 A row of K*L outputs (K blocks) is split into groups of neighbouring residues; each group is one
@@ -127,7 +127,7 @@ class PolyphaseConverter(_Streaming):
     -----
     The products run on strided views of the input, laid out by
     :func:`~webapp.dsp.bank.bank_layout`; products in float32 accumulate in float32 (about
-    -125 dB relative error, see DESIGN.md), so masks beyond about 120 dB want float64.
+    -125 dB relative error, measured), so masks beyond about 120 dB want float64.
     """
 
     def __init__(self, taps, up, down, *, channels=1, dtype="float64", delay=None):

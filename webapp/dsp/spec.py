@@ -28,7 +28,7 @@ METHODS = ("auto", "kaiser", "equiripple", "least-squares")
 ARITHMETICS = ("float32", "float64")
 STAGE_CHOICES = ("single", "auto")
 # float32 products keep about -125 dB relative error (24-bit mantissa, sums of a few hundred
-# products); a deeper mask needs float64 arithmetic. Common practice, see DESIGN.md.
+# products); a deeper mask needs float64 arithmetic. Common practice.
 FLOAT32_LIMIT_DB = 125.0
 MIN_ATTENUATION_DB = 20.0
 MAX_ATTENUATION_DB = 200.0

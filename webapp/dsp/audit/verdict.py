@@ -9,10 +9,10 @@ from .signals import TONE_LEVEL_DBFS
 
 __all__ = ["ALIGNMENT_LIMIT_SAMPLES", "thd_n_limit_db", "verdict_rows"]
 
-# The converter promises output n at time n / fs_out exactly (DESIGN.md): a linear-phase audit
+# The converter promises output n at time n / fs_out exactly (the alignment rule): a linear-phase audit
 # fails when the measured offset exceeds this (our own limit, far above float64 rounding).
 ALIGNMENT_LIMIT_SAMPLES = 0.01
-# Relative rounding noise of the arithmetic: float32 products keep about -125 dB (DESIGN.md);
+# Relative rounding noise of the arithmetic: float32 products keep about -125 dB (measured);
 # float64 keeps far below -250 dB (53-bit mantissa; our conservative figure).
 ARITHMETIC_FLOOR_DB = {"float32": FLOAT32_LIMIT_DB, "float64": 250.0}
 
