@@ -233,7 +233,12 @@ def main(argv=None):
         time.sleep(min(20.0, args.minutes * 60 / 6))
         early = _proc_figures(server.pid)
         early["at_s"] = round(time.monotonic() - t0, 1)
-        time.sleep(max(0.0, args.minutes * 60 - (time.monotonic() - t0)))
+        series = [dict(at_s=early["at_s"], rss_mib=early["rss_mib"])]
+        # RSS every 30 s: a cache filling up to its bound levels off, a leak keeps climbing
+        while time.monotonic() - t0 < args.minutes * 60:
+            time.sleep(min(30.0, max(0.0, args.minutes * 60 - (time.monotonic() - t0))))
+            series.append(dict(at_s=round(time.monotonic() - t0, 1),
+                               rss_mib=_proc_figures(server.pid)["rss_mib"]))
         stop.set()
         for t in threads:
             t.join(timeout=120)
@@ -243,6 +248,7 @@ def main(argv=None):
         figures = dict(minutes=args.minutes, clients=args.clients,
                        requests=stats.requests, errors=len(stats.errors),
                        error_examples=sorted(set(stats.errors))[:10], start=early, end=end,
+                       rss_series=series,
                        requests_per_s=round(stats.requests / (end["at_s"]), 2))
     finally:
         server.terminate()
@@ -257,6 +263,8 @@ def main(argv=None):
           f"{early['peak_rss_mib']} MiB, {early['open_fds']} open fds")
     print(f"  server at the end ({end['at_s']} s): RSS {end['rss_mib']} MiB, peak "
           f"{end['peak_rss_mib']} MiB, {end['open_fds']} open fds")
+    print("  RSS over time (s: MiB): " + ", ".join(f"{p['at_s']:.0f}: {p['rss_mib']:.0f}"
+                                                 for p in figures["rss_series"]))
     for e in figures["error_examples"]:
         print(f"  error: {e}")
     print(f"  server log: {log_path}")
