@@ -98,6 +98,23 @@ def laptop_context(browser):
     ctx.close()
 
 
+@pytest.fixture
+def laptop_page(laptop_context, server):
+    """A fresh 1280 x 800 page with the demo loaded, from the default settings; the test fails
+    when the page threw."""
+    pg = laptop_context.new_page()
+    errors = []
+    pg.on("pageerror", lambda exc: errors.append(str(exc)))
+    pg.set_default_timeout(60000)
+    pg.goto(server + "/api/health")
+    pg.evaluate("() => window.localStorage.clear()")
+    pg.goto(server + "/")
+    pg.wait_for_selector("body[data-ready='true']")
+    yield pg
+    pg.close()
+    assert not errors, f"the page threw: {errors}"
+
+
 def open_page(context, server):
     """A fresh page with the demo loaded and its first spectra drawn, starting from the
     defaults (this browser's remembered settings are cleared first); returns (page, errors)."""

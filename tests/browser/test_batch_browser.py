@@ -25,22 +25,8 @@ pytestmark = pytest.mark.browser
 FILES = [("talk_a.wav", 22050, 1, 1.0), ("talk_b.wav", 44100, 2, 0.8), ("talk_c.flac", 96000, 1, 0.6)]
 
 
-@pytest.fixture
-def small_page(context, server):
-    pg = context.new_page()
-    pg.set_viewport_size({"width": 1280, "height": 800})
-    errors = []
-    pg.on("pageerror", lambda exc: errors.append(str(exc)))
-    pg.set_default_timeout(60000)
-    pg.goto(server + "/")
-    pg.wait_for_selector("body[data-ready='true']")
-    yield pg
-    pg.close()
-    assert not errors, f"the page threw: {errors}"
-
-
-def test_batch_panel_converts_several_files_and_offers_one_zip(small_page, tmp_path):
-    page = small_page
+def test_batch_panel_converts_several_files_and_offers_one_zip(laptop_page, tmp_path):
+    page = laptop_page
     paths, frames = [], {}
     for name, rate, ch, seconds in FILES:
         n = int(rate * seconds)

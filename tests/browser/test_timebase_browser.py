@@ -24,22 +24,8 @@ REFERENCE = os.path.join(DEMO, "tidewater_call_16k.flac")
 TRUE_DRIFT_PPM = 1e6 / 26316      # resample_poly(26317, 26316), see the module docstring
 
 
-@pytest.fixture
-def small_page(browser, server):
-    ctx = browser.new_context(viewport={"width": 1280, "height": 800}, accept_downloads=True)
-    pg = ctx.new_page()
-    errors = []
-    pg.on("pageerror", lambda exc: errors.append(str(exc)))
-    pg.set_default_timeout(60000)
-    pg.goto(server + "/")
-    pg.wait_for_selector("body[data-ready='true']")
-    yield pg
-    ctx.close()
-    assert not errors, f"the page threw: {errors}"
-
-
-def test_time_base_view_measures_listens_and_corrects_the_demo_pair(small_page, tmp_path):
-    page = small_page
+def test_time_base_view_measures_listens_and_corrects_the_demo_pair(laptop_page, tmp_path):
+    page = laptop_page
     os.makedirs(os.path.join(SOURCE_ROOT, "test-artifacts"), exist_ok=True)
     page.click("#tab-timebase")
     # the demo pair is chosen for us
