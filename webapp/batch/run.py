@@ -18,7 +18,6 @@ A worker lost mid-file is handled by Dask (the scheduler runs its tasks elsewher
 still ends with a lost-worker error is submitted again up to ``retries`` times.
 """
 
-from concurrent.futures import CancelledError
 from contextlib import nullcontext
 from dataclasses import dataclass, field, replace
 import os
@@ -208,12 +207,10 @@ def _convert(client, todo, plans, ledger, progress, settings, *, retries):
                 reason = f"{type(exc).__name__}: {exc}"
                 if attempts[e.name] <= retries:
                     progress.note(f"rateferry: '{e.name}' is run again after {reason}")
-                    if isinstance(exc, CancelledError) or "lost dependencies" in str(exc) \
-                            or "forgotten" in str(exc):
-                        # the scheduler lost the scattered design with the worker: scatter it
-                        # again (designs are deterministic; the copy is the same plan)
-                        plan_futures[e.route] = client.scatter(plans[e.route], broadcast=True,
-                                                               hash=False)
+                    # a lost worker can take the scattered design with it: a retry scatters
+                    # it again (the same deterministic plan), whatever the task failed of
+                    plan_futures[e.route] = client.scatter(plans[e.route], broadcast=True,
+                                                           hash=False)
                     new = _submit(client, e, plan_futures[e.route], settings, attempts[e.name])
                     by_future[new] = e
                     pending.add(new)
