@@ -180,9 +180,7 @@ def _route_of(spec, fs_in, fs_out, *, plan, time_base, speed, true_rate_hz):
             raise ParameterError(f"the design converts by {plan.up}/{plan.down} but the speed "
                                  f"change needs {speed.up}/{speed.down}", "design")
         return plan, speed.output_length, None, speed
-    if plan is None:
-        plan = verified_plan(spec, fs_in, fs_out)
-    plan = as_plan(plan).require_met()
+    plan = verified_plan(spec, fs_in, fs_out) if plan is None else as_plan(plan).require_met()
     if (plan.fs_in, plan.fs_out) != (fs_in, fs_out):
         raise ParameterError(f"the design converts {plan.fs_in} -> {plan.fs_out} Hz but the "
                              f"source is {fs_in} Hz and the target {fs_out} Hz", "design")
