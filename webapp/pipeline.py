@@ -36,7 +36,7 @@ from .dsp.loudness import LoudnessMeter, TruePeakMeter
 from .dsp.polyphase import make_converter
 from .dsp.spec import Spec
 
-__all__ = ["Cancelled", "ConversionResult", "execute", "Meters", "BLOCK_FRAMES"]
+__all__ = ["Cancelled", "ConversionResult", "execute", "Meters", "measure_file", "BLOCK_FRAMES"]
 
 BLOCK_FRAMES = 65536
 
@@ -261,8 +261,10 @@ def _measure_pass(job, source_meters, cancel, progress):
     return first.result()
 
 
-def _decoded_meters(path, rate, channels):
-    meters = Meters(rate, channels)
+def measure_file(path, rate_hz, channels):
+    """:class:`Meters` over a whole file, read in blocks: a recording as loaded, or a lossy
+    output decoded again to verify it."""
+    meters = Meters(rate_hz, channels)
     for block in media.read_blocks(path, blocksize=BLOCK_FRAMES):
         meters.process(block)
     return meters.result()
@@ -315,7 +317,7 @@ def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunk
     def check(path):
         meters = out_meters.result()
         if out_plan.is_lossy:
-            meters = _decoded_meters(path, job.fs_out, channels)
+            meters = measure_file(path, job.fs_out, channels)
         review(meters, out_meters.result(), limiter)
 
     writer = media.AtomicWriter(job.target, out_plan, tags=job.probe.tags, add_comment=comment,

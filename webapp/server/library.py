@@ -8,7 +8,7 @@ from threadpoolctl import threadpool_limits
 
 from webapp import media
 from webapp.dsp.errors import RateferryError
-from webapp.pipeline import Meters
+from webapp.pipeline import measure_file
 
 __all__ = ["DEMO_NAME", "DEMO_PAIR", "probe_figures", "measure", "register_demo",
            "register_demo_pair", "find_demo_file", "demo_files"]
@@ -44,13 +44,10 @@ def measure(path, info):
     AudioFileError
         At the first NaN/Inf sample (from :func:`webapp.media.read_blocks`).
     """
-    meters = Meters(info.rate_hz, info.channels)
     # the true-peak products are small: BLAS threads only fight each other (and the other
     # requests) over them, ten times slower on a busy machine
     with threadpool_limits(limits=1, user_api="blas"):
-        for block in media.read_blocks(path):
-            meters.process(block)
-        return dict(meters.result(), analysis="done")
+        return dict(measure_file(path, info.rate_hz, info.channels), analysis="done")
 
 
 def demo_files(folder):
