@@ -180,3 +180,13 @@ class DesignCache:
     def memo(self, kind, key, compute):
         """Cache any other derived value (spectra, audits) under ``(kind,) + key``."""
         return self._memo(kind, key, compute)
+
+    def put(self, kind, key, value):
+        """Keep a value computed elsewhere (an overview from the upload's analysis) under
+        ``(kind,) + key``; never waits for a :meth:`memo` computing the same key."""
+        k = (kind,) + key
+        with self._lock:
+            self._data[k] = value
+            self._data.move_to_end(k)
+            self._weights[k] = 0
+            self._evict(kind)

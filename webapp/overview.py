@@ -26,9 +26,11 @@ from webapp import media
 from webapp.threads import Stages, prefetch
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.loudness import MIN_LOUDNESS_RATE_HZ, LoudnessMeter
-from webapp.dsp.overs import FULL_SCALE, TruePeakOvers, frame_peaks, full_scale_frames
+from webapp.dsp.overs import FULL_SCALE, TruePeakOvers, TruePeakScan, full_scale_frames
+from webapp.pipeline import Meters
 
-__all__ = ["overview", "DEFAULT_COLUMNS", "MAX_COLUMNS", "OVER_THRESHOLD_DBTP"]
+__all__ = ["overview", "overview_and_meters", "DEFAULT_COLUMNS", "MAX_COLUMNS",
+           "OVER_THRESHOLD_DBTP"]
 
 DEFAULT_COLUMNS = 1200
 MAX_COLUMNS = 4000
@@ -67,6 +69,52 @@ class _Markers:
                     count=self.count[cols].tolist())
 
 
+class _Columns:
+    """The overview's per-column figures, fed the blocks in order (min, max, full scale)."""
+
+    def __init__(self, columns, frames):
+        self.n = columns
+        self.frames = frames
+        # column c holds frames edges[c] .. edges[c + 1] - 1
+        self.edges = (np.arange(columns + 1, dtype=np.int64) * frames) // columns
+        self.low = np.full(columns, np.inf)
+        self.high = np.full(columns, -np.inf)
+        self.clipped = _Markers(columns)
+        self.overs = _Markers(columns)
+        self.pos = 0
+
+    def column_of(self, frames):
+        return np.searchsorted(self.edges, frames, side="right") - 1
+
+    def add(self, block):
+        m = block.shape[0]
+        if m == 0:
+            return
+        first, last = self.column_of([self.pos, self.pos + m - 1])
+        cols = np.arange(first, last + 1)
+        # where each column touched by the block starts inside it; a column's frames are one
+        # stretch of the interleaved samples, so one reduction gives its extreme over channels
+        starts = np.maximum(self.edges[cols] - self.pos, 0) * block.shape[1]
+        flat = np.ascontiguousarray(block).reshape(-1)
+        lo = np.minimum.reduceat(flat, starts)
+        hi = np.maximum.reduceat(flat, starts)
+        if hi.max() >= FULL_SCALE or -lo.min() >= FULL_SCALE:   # else no frame is clipped
+            at_fs = np.flatnonzero(full_scale_frames(block)) + self.pos
+            self.clipped.add(at_fs, self.column_of(at_fs))
+        self.low[cols] = np.minimum(self.low[cols], lo)
+        self.high[cols] = np.maximum(self.high[cols], hi)
+        self.pos += m
+
+    def add_overs(self, frames):
+        self.overs.add(frames, self.column_of(frames))
+
+    def figures(self, rate, loud):
+        return dict(time_s=(self.edges[:-1] / rate).round(4).tolist(),
+                    min=np.round(self.low, 5).tolist(), max=np.round(self.high, 5).tolist(),
+                    short_term_lufs=_short_term_columns(loud, self.edges, rate),
+                    full_scale=self.clipped.figures(rate), overs=self.overs.figures(rate))
+
+
 def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOLD_DBTP,
              probe=None):
     """Figures for the overview plot of the recording at ``path``.
@@ -91,63 +139,69 @@ def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOL
     ------
     AudioFileError, ParameterError
     """
+    figures, _ = _read(path, columns, over_threshold_dbtp, probe, meters=False)
+    return figures
+
+
+def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
+                        over_threshold_dbtp=OVER_THRESHOLD_DBTP, probe=None):
+    """The overview and the recording's meters from one read of the file.
+
+    The same figures as :func:`overview` and as :func:`webapp.pipeline.measure_file` (the
+    loudness from the one BS.1770 meter that also gives the short-term curve; the true peak
+    from the one 16x pass that finds the overs, :class:`webapp.dsp.overs.TruePeakScan`).
+
+    Returns
+    -------
+    (dict, dict)
+        The overview (as :func:`overview`) and the meters (as
+        :meth:`webapp.pipeline.Meters.result`).
+    """
+    return _read(path, columns, over_threshold_dbtp, probe, meters=True)
+
+
+def _read(path, columns, over_threshold_dbtp, probe, *, meters):
     t0 = time.perf_counter()
     info = probe if probe is not None else media.probe(path)
     frames, rate = info.frames, info.rate_hz
     if frames == 0:
         raise ParameterError("the recording has no frames to draw", "recording_id")
-    n = _columns(columns, frames)
-    low = np.full(n, np.inf)
-    high = np.full(n, -np.inf)
-    clipped, overs = _Markers(n), _Markers(n)
-    finder = TruePeakOvers(channels=info.channels, threshold_dbtp=over_threshold_dbtp)
-    loud = LoudnessMeter(rate_hz=rate, channels=info.channels) \
-        if rate >= MIN_LOUDNESS_RATE_HZ else None
-    pos = 0
-    found = []       # the true-peak search runs on its own thread, beside the reader
-    # one BLAS thread for the interpolator's small products (more only fight over the cores)
+    grid = _Columns(_columns(columns, frames), frames)
+    if meters:
+        # the pipeline's meters (their figures, their note below 8 kHz), with the true peak
+        # taken from the scan that also finds the overs
+        meter = Meters(rate, info.channels)
+        finder = meter.peak = TruePeakScan(rate_hz=rate, channels=info.channels,
+                                           threshold_dbtp=over_threshold_dbtp)
+        loud = meter.loud
+    else:
+        finder = TruePeakOvers(channels=info.channels, threshold_dbtp=over_threshold_dbtp)
+        loud = LoudnessMeter(rate_hz=rate, channels=info.channels) \
+            if rate >= MIN_LOUDNESS_RATE_HZ else None
+    found = []
+    # the true-peak search and the loudness meter run on their own threads, beside the reader
+    # and the columns; one BLAS thread for the interpolator's small products (more only fight
+    # over the cores)
     with threadpool_limits(limits=1, user_api="blas"):
         with Stages() as stages:
             search = stages.add(lambda block: found.append(finder.process(block)),
                                 "rateferry-overview-overs")
+            metering = None if loud is None else stages.add(loud.process,
+                                                            "rateferry-overview-loudness")
             for block in prefetch(media.read_blocks(path, blocksize=_BLOCK_FRAMES)):
                 search.submit(block)
-                m = block.shape[0]
-                col = (np.arange(pos, pos + m, dtype=np.int64) * n) // frames
-                starts = np.flatnonzero(np.r_[True, col[1:] != col[:-1]])
-                cols = col[starts]                     # distinct and ascending within the block
-                lo, hi = _frame_range(block)
-                low[cols] = np.minimum(low[cols], np.minimum.reduceat(lo, starts))
-                high[cols] = np.maximum(high[cols], np.maximum.reduceat(hi, starts))
-                peaks = frame_peaks(block)
-                at_fs = np.flatnonzero(full_scale_frames(block, peaks))
-                clipped.add(at_fs + pos, col[at_fs])
-                if loud is not None:
-                    loud.process(block)
-                pos += m
+                if metering is not None:
+                    metering.submit(block)
+                grid.add(block)
         found.append(finder.finish())
     for over in found:
-        overs.add(over, (over * n) // frames)
-    edges = (np.arange(n + 1, dtype=np.int64) * frames) // n
-    return dict(
+        grid.add_overs(over)
+    figures = dict(
         rate_hz=rate, channels=info.channels, frames=frames, duration_s=frames / rate,
-        columns=n, time_s=(edges[:-1] / rate).round(4).tolist(),
-        min=np.round(low, 5).tolist(), max=np.round(high, 5).tolist(),
-        short_term_lufs=_short_term_columns(loud, edges, rate),
-        full_scale=clipped.figures(rate), overs=overs.figures(rate),
+        columns=grid.n, **grid.figures(rate, loud),
         full_scale_level=FULL_SCALE, over_threshold_dbtp=float(over_threshold_dbtp),
         seconds=time.perf_counter() - t0)
-
-
-def _frame_range(block):
-    """Smallest and largest sample of each frame over its channels (a loop over the channels:
-    numpy reduces a short last axis slowly)."""
-    lo = block[:, 0].copy()
-    hi = block[:, 0].copy()
-    for c in range(1, block.shape[1]):
-        np.minimum(lo, block[:, c], out=lo)
-        np.maximum(hi, block[:, c], out=hi)
-    return lo, hi
+    return figures, (meter.result() if meters else None)
 
 
 def _short_term_columns(loud, edges, rate):

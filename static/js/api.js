@@ -127,7 +127,11 @@ export async function bytes(url, signal) {
  * uses XMLHttpRequest; the browser streams the File from disk, so an hour-long WAV does not
  * freeze the page. Returns {promise, abort}.
  */
-export function uploadRecording(file, onProgress) {
+/**
+ * Upload an audio file. `columns` (optional): the overview's width, so the server draws the
+ * overview in the same read of the file as its loudness and true peak.
+ */
+export function uploadRecording(file, onProgress, { columns } = {}) {
   const xhr = new XMLHttpRequest();
   const promise = new Promise((resolve, reject) => {
     xhr.open('POST', urlFor('recordings'));
@@ -155,6 +159,7 @@ export function uploadRecording(file, onProgress) {
       }
     };
     const form = new FormData();
+    if (columns) form.append('columns', String(columns));
     form.append('file', file, file.name);
     xhr.send(form);
   });

@@ -69,6 +69,8 @@ class State:
                                    on_result=self._on_result)
         self.background = ThreadPoolExecutor(max_workers=1,
                                              thread_name_prefix="rateferry-analysis")
+        from .library import RunningAnalyses
+        self.analyses = RunningAnalyses()
         self.demo_id = None
         self.demo_pair = None
         from .streams import StreamSlots

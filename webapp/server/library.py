@@ -1,17 +1,21 @@
 """Recordings: probe and measure a file once, register it in the store (no Flask here)."""
 
+from concurrent.futures import CancelledError
 import glob
 import logging
 import os
+import threading
 
 from threadpoolctl import threadpool_limits
 
 from webapp import media
 from webapp.dsp.errors import RateferryError
+from webapp.jsontools import jsonable
+from webapp.overview import overview_and_meters
 from webapp.pipeline import measure_file
 
-__all__ = ["DEMO_NAME", "DEMO_PAIR", "probe_figures", "measure", "register_demo",
-           "register_demo_pair", "find_demo_file", "demo_files"]
+__all__ = ["DEMO_NAME", "DEMO_PAIR", "probe_figures", "measure", "analyse", "RunningAnalyses",
+           "register_demo", "register_demo_pair", "find_demo_file", "demo_files"]
 
 log = logging.getLogger(__name__)
 
@@ -48,6 +52,65 @@ def measure(path, info):
     # requests) over them, ten times slower on a busy machine
     with threadpool_limits(limits=1, user_api="blas"):
         return dict(measure_file(path, info.rate_hz, info.channels), analysis="done")
+
+
+def analyse(path, info, columns=None):
+    """:func:`measure`, and with ``columns`` the overview in that many columns, from one read.
+
+    Returns
+    -------
+    (dict, dict or None)
+        The meters (as :func:`measure`) and the overview, JSON-ready (as
+        :func:`webapp.overview.overview`), or None without ``columns``.
+
+    Raises
+    ------
+    AudioFileError, ParameterError
+        As :func:`measure`; ParameterError for ``columns`` outside 1 to 4000.
+    """
+    if columns is None:
+        return measure(path, info), None
+    overview, meters = overview_and_meters(path, columns=columns, probe=info)
+    return dict(meters, analysis="done"), jsonable(overview)
+
+
+class RunningAnalyses:
+    """The background analyses of long recordings, by recording id: an overview request for
+    the columns one of them draws waits for it instead of reading the file a second time (the
+    two would only fight over the cores)."""
+
+    def __init__(self):
+        self._lock = threading.Lock()
+        self._running = {}           # recording id -> (columns or None, future)
+
+    def submit(self, executor, recording_id, columns, fn, *args):
+        """Run ``fn(*args)`` on ``executor`` (its result: the overview or None)."""
+        with self._lock:
+            future = executor.submit(fn, *args)
+            self._running[recording_id] = (columns, future)
+        future.add_done_callback(lambda f: self._forget(recording_id, f))
+        return future
+
+    def _forget(self, recording_id, future):
+        with self._lock:
+            if self._running.get(recording_id, (None, None))[1] is future:
+                del self._running[recording_id]
+
+    def running(self, recording_id):
+        """``(columns, future)`` of the analysis running for the recording, or None."""
+        with self._lock:
+            return self._running.get(recording_id)
+
+    def overview(self, recording_id, columns):
+        """The overview in ``columns`` columns from the analysis running for the recording
+        (waits for it); None when none is running for those columns or it gave none."""
+        running = self.running(recording_id)
+        if running is None or running[0] != columns:
+            return None
+        try:
+            return running[1].result()
+        except CancelledError:       # the app is shutting down
+            return None
 
 
 def demo_files(folder):

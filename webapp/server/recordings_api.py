@@ -6,13 +6,14 @@ from flask import Blueprint, current_app, request, send_file
 
 from webapp import media
 from webapp.jsontools import jsonable
-from webapp.dsp.errors import AudioFileError, ParameterError, RateferryError
+from webapp.dsp.errors import AudioFileError, RateferryError
+from webapp.dsp.numbers import whole_number
 from webapp.store import ACTIVE_STATUSES
 
 from .api import _MIMETYPES, _file_field, _json, _url
 from .db import get_db, state
 from .errors import ApiError
-from .library import measure, probe_figures
+from .library import analyse, probe_figures
 from .params import (recording_file_or_410, recording_or_404)
 from .uploads import discard_incoming, display_name, take_upload, \
     upload_extension
@@ -43,10 +44,19 @@ def _with_name(exc, generated, name, field="file"):
 
 
 
+def _columns(raw):
+    """The overview's ``columns`` (query parameter or form field): a whole number, 1 to 4000."""
+    from webapp.overview import MAX_COLUMNS
+    return whole_number(raw, "columns", low=1, high=MAX_COLUMNS, text=True)
+
+
 @bp.post("/recordings")
 def upload_recording():
     try:
         storage = _file_field()
+        raw = request.form.get("columns")
+        # the page's overview width: the overview is drawn by the same read as the meters
+        columns = None if raw is None else _columns(raw)
         name = display_name(storage.filename)
         ext = upload_extension(storage.filename)
         st = state()
@@ -57,10 +67,11 @@ def upload_recording():
     if size == 0:
         os.unlink(target)
         raise AudioFileError(f"cannot read '{name}': the file is empty (0 bytes)", "file")
+    overview = None
     try:
         info = media.probe(target)
         if info.duration_s <= current_app.config["ANALYSE_SYNC_MAX_S"]:
-            meters = measure(target, info)
+            meters, overview = analyse(target, info, columns)
         else:
             meters = dict(analysis="pending")
     except RateferryError as exc:
@@ -68,20 +79,28 @@ def upload_recording():
         raise _with_name(exc, target, name) from None
     rec = get_db().add_recording(name=name, path=target, owned=True, demo=False,
                                  probe=probe_figures(info), meters=meters)
+    if overview is not None:
+        st.cache.put("overview", (rec["id"], columns), overview)
     if meters["analysis"] == "pending":
-        st.background.submit(_measure_later, st.store, rec["id"], target, info, name)
+        st.analyses.submit(st.background, rec["id"], columns, _analyse_later, st, rec["id"],
+                           target, info, name, columns)
     return _json(_public_recording(rec), 201)
 
 
-def _measure_later(store, recording_id, path, info, name):
+def _analyse_later(st, recording_id, path, info, name, columns):
+    """The background analysis of a long upload; returns its overview (or None)."""
     try:
-        meters = measure(path, info)
+        meters, overview = analyse(path, info, columns)
     except RateferryError as exc:
         err = _with_name(exc, path, name)
         meters = dict(analysis="failed", analysis_error=dict(message=err.message,
                                                              field=err.field))
-    with store.open() as db:
+        overview = None
+    with st.store.open() as db:
         db.update_meters(recording_id, meters)
+    if overview is not None:
+        st.cache.put("overview", (recording_id, columns), overview)
+    return overview
 
 
 @bp.get("/recordings")
@@ -106,13 +125,14 @@ def recording_audio(recording_id):
 def recording_overview(recording_id):
     from webapp.overview import DEFAULT_COLUMNS, overview
     rec = recording_or_404(recording_id)
-    raw = request.args.get("columns", str(DEFAULT_COLUMNS))
-    try:
-        columns = int(raw)
-    except ValueError:
-        raise ParameterError(f"columns must be a whole number, got {raw!r}", "columns") from None
-    body, cached = state().cache.memo("overview", (rec["id"], columns),
-                                      lambda: jsonable(overview(rec["path"], columns=columns)))
+    columns = _columns(request.args.get("columns", str(DEFAULT_COLUMNS)))
+    st = state()
+
+    def compute():
+        # a long upload's background analysis may be drawing these very columns: wait for it
+        body = st.analyses.overview(rec["id"], columns)
+        return body if body is not None else jsonable(overview(rec["path"], columns=columns))
+    body, cached = st.cache.memo("overview", (rec["id"], columns), compute)
     return _json(dict(body, recording_id=rec["id"], cached=cached), clean=True)
 
 

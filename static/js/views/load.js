@@ -92,7 +92,7 @@ export function init(root, state) {
       } catch (err) {
         showError(root, err, 'recording_id');
       }
-    }, 2000);
+    }, 500);
   });
 
   select.addEventListener('change', async () => {
@@ -134,6 +134,8 @@ export function init(root, state) {
     progress.value = 0;
     status.textContent = `Uploading ${file.name} (${fmt.bytes(file.size)})…`;
     const t0 = performance.now();
+    // the overview's width goes with the file: the server draws it while it measures
+    const columns = state.get('overviewColumns');
     upload = api.uploadRecording(file, (p) => {
       const pct = p.total ? (100 * p.sent) / p.total : 0;
       progress.value = pct;
@@ -144,7 +146,7 @@ export function init(root, state) {
         const eta = p.sent > 0 ? elapsed * (p.total - p.sent) / p.sent : NaN;
         status.textContent = `Uploading ${file.name}: ${fmt.percent(pct)} · about ${fmt.duration(eta)} left`;
       }
-    });
+    }, { columns });
     upload.promise.then(async (rec) => {
       progress.hidden = true;
       status.textContent = `Loaded ${rec.name}.`;
@@ -154,7 +156,8 @@ export function init(root, state) {
       } catch (_) {
         recordings = [rec, ...recordings];
       }
-      state.set({ recordings, recording: rec });
+      // the overview asks for the columns drawn with the upload, even if its width moved since
+      state.set({ recordings, recording: rec, overviewColumns: columns });
     }).catch((err) => {
       progress.hidden = true;
       status.textContent = '';

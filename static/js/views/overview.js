@@ -38,7 +38,7 @@ export function init(root, state) {
     controller = new AbortController();
     clearErrors(root);
     summary.textContent = `Reading ${rec.name}…`;
-    const columns = Math.max(200, Math.min(4000, Math.round(plot.clientWidth || 1000)));
+    const columns = state.get('overviewColumns') || columnsNow();
     try {
       const o = await api.overview(rec.id, columns, controller.signal);
       if (!state.get('recording') || state.get('recording').id !== rec.id) return;
@@ -55,6 +55,18 @@ export function init(root, state) {
       showError(root, err);
     }
   }
+
+  // one column per pixel of the plot; kept in the state, so an upload can ask the server for
+  // the overview while it measures the file
+  function columnsNow() {
+    return Math.max(200, Math.min(4000, Math.round(plot.clientWidth || 1000)));
+  }
+  const measureWidth = () => {
+    const n = columnsNow();
+    if (n !== state.get('overviewColumns')) state.set({ overviewColumns: n });
+  };
+  measureWidth();
+  if (window.ResizeObserver) new ResizeObserver(measureWidth).observe(plot);
 
   let shownFor = null;
   state.on('recording', (s) => {
