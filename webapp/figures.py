@@ -25,7 +25,7 @@ from webapp import media
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.polyphase import convert
 from webapp.dsp.spectrum import band_energy_db, bucket_extreme, db, decimate_for_plot, \
-    dense_response, response_at, welch_spectrum
+    dense_response, response_at, smooth_length, welch_spectrum
 from webapp.dsp.stages import as_plan, cascade_response, plan_options
 
 __all__ = ["design_view", "mask_view", "verdict", "plans_view", "minmax_decimate",
@@ -357,23 +357,24 @@ def spectra_view(path, probe, plan, *, start_s=None, length_s=None, log_axis=Fal
     src_acc = tgt_acc = None
     weight_total = 0.0
     f_src = f_tgt = None
-    # the same bin width at both rates, so a tone peaks at the same density in both curves
+    # the same bin width at both rates (to 0.1 %, a length the FFT takes in fast passes), so a
+    # tone peaks at the same density in both curves
     n_src = 8192 if fs_in <= 50000 else 16384
-    n_tgt = max(16, int(round(n_src * fs_out / fs_in)))
-    for s, l in parts:
-        # one BLAS thread, as in the pipeline: the converter's products gain nothing from more
-        with threadpool_limits(limits=1, user_api="blas"):
+    n_tgt = smooth_length(max(16, int(round(n_src * fs_out / fs_in))))
+    # one BLAS thread, as in the pipeline: the converter's products gain nothing from more
+    with threadpool_limits(limits=1, user_api="blas"):
+        for s, l in parts:
             x, y = _padded_convert(path, fs_in, probe.channels, probe.frames, s, l, plan)
-        f_src, p_src = welch_spectrum(x, fs_in, nperseg=n_src)
-        f_tgt, p_tgt = welch_spectrum(y, fs_out, nperseg=n_tgt)
-        w = float(x.shape[0])
-        if src_acc is None:
-            src_acc, tgt_acc = np.zeros_like(p_src), np.zeros_like(p_tgt)
-        if p_src.shape != src_acc.shape or p_tgt.shape != tgt_acc.shape:
-            continue  # a short last excerpt with a coarser grid: leave it out of the average
-        src_acc += w * 10 ** (p_src / 10)
-        tgt_acc += w * 10 ** (p_tgt / 10)
-        weight_total += w
+            f_src, p_src = welch_spectrum(x, fs_in, nperseg=n_src)
+            f_tgt, p_tgt = welch_spectrum(y, fs_out, nperseg=n_tgt)
+            w = float(x.shape[0])
+            if src_acc is None:
+                src_acc, tgt_acc = np.zeros_like(p_src), np.zeros_like(p_tgt)
+            if p_src.shape != src_acc.shape or p_tgt.shape != tgt_acc.shape:
+                continue  # a short last excerpt with a coarser grid: leave it out of the average
+            src_acc += w * 10 ** (p_src / 10)
+            tgt_acc += w * 10 ** (p_tgt / 10)
+            weight_total += w
     p_src = 10 * np.log10(np.maximum(src_acc / weight_total, 1e-30))
     p_tgt = 10 * np.log10(np.maximum(tgt_acc / weight_total, 1e-30))
 
