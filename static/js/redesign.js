@@ -1,7 +1,9 @@
 // The live redesign: each edit of the route or mask asks the server for the order estimate
 // first; an extreme design (the server's limits, e.g. more than 100 000 taps) waits for the
 // user's word in `designEstimate`, anything else is designed at once. The next edit abandons a
-// running redesign (its request is aborted), and so does `designStop`.
+// running redesign (its request is aborted), and so does `designStop`. The estimate (a few
+// milliseconds at the server) is asked for at the edit itself, so it is in by the time the
+// short pause after the last edit is over and the design starts.
 
 import * as api from './api.js';
 import { debounce } from './ui.js';
@@ -10,10 +12,18 @@ function keyOf(body) {
   return JSON.stringify([body.recording_id, body.fs_out, body.preset, Object.entries(body.spec).sort()]);
 }
 
+function bodyOf(s) {
+  const rec = s.recording;
+  const route = s.route;
+  if (!rec || !route || !s.options) return null;
+  return { recording_id: rec.id, fs_out: route.fs_out, preset: route.preset, spec: route.spec };
+}
+
 export function start(state) {
   let seq = 0;
   let controller = null;
   let allowed = null;            // the key of the extreme design the user chose to run
+  let estimating = null;         // { key, promise, controller } of the latest estimate asked for
 
   function abandon() {
     if (controller) controller.abort();
@@ -21,21 +31,38 @@ export function start(state) {
     seq += 1;
   }
 
+  /** The estimate for `body`: the one already asked for when it is for the same design. */
+  function estimateFor(body) {
+    const key = keyOf(body);
+    if (estimating && estimating.key === key) return estimating.promise;
+    if (estimating) estimating.controller.abort();
+    const ask = new AbortController();
+    const promise = api.estimate(body, ask.signal);
+    // a failure reaches the redesign that waits for it (if any) and is not kept for the next
+    promise.catch(() => {
+      if (estimating && estimating.promise === promise) estimating = null;
+    });
+    estimating = { key, promise, controller: ask };
+    return promise;
+  }
+
+  function forgetEstimate() {
+    if (estimating) estimating.controller.abort();
+    estimating = null;
+  }
+
   async function redesign() {
-    const s = state.get();
-    const rec = s.recording;
-    const route = s.route;
-    if (!rec || !route || !s.options) return;
+    const body = bodyOf(state.get());
+    if (!body) return;
     abandon();
     controller = new AbortController();
     const { signal } = controller;
     const mine = seq;
-    const body = { recording_id: rec.id, fs_out: route.fs_out, preset: route.preset, spec: route.spec };
     const key = keyOf(body);
     state.set({ designBusy: true, designEstimate: null, designNote: null });
     try {
       if (key !== allowed) {
-        const est = await api.estimate(body, signal);
+        const est = await estimateFor(body);
         if (mine !== seq) return;
         if (est.extreme) {
           state.set({ designBusy: false, designEstimate: { ...est, key } });
@@ -69,9 +96,10 @@ export function start(state) {
     }
   }, 600);
 
-  // short enough that the plots follow an edit within a quarter of a second; a request still
-  // in flight is aborted by the next one
-  const soon = debounce(redesign, 80);
+  // the pause after an edit before designing: short enough that the plots follow the last edit
+  // well within a quarter of a second, longer than the 30-40 ms between the repeats of a held
+  // key (a design still in flight is aborted by the next one, but the server finishes it)
+  const soon = debounce(redesign, 40);
   let designedFor = null;        // a refresh of the same recording's figures is no reason to redesign
   state.on(['route', 'recording'], (s, keys) => {
     if (keys.includes('recording')) {
@@ -81,6 +109,8 @@ export function start(state) {
       soon.now();
     } else {
       if (state.get('designBusy')) abandon();   // the next edit abandons the running redesign
+      const body = bodyOf(s);
+      if (body && keyOf(body) !== allowed) estimateFor(body);   // in during the pause
       soon();
     }
   });
@@ -92,6 +122,7 @@ export function start(state) {
   state.on('designStop', (s) => {
     if (!s.designStop) return;
     abandon();
+    forgetEstimate();
     soon.cancel();
     state.set({ designBusy: false, designEstimate: null, designNote: 'Redesign stopped: the plots show the last design. Edit the mask to design again.' });
   });
