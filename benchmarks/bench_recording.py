@@ -1,36 +1,59 @@
-"""A recording loaded in the page: upload, probe, meters, design, spectra, each timed.
+"""A recording loaded in the page: probe, meters, spectra and overview, and where the time goes.
 
-Run: ``python benchmarks/bench_recording.py [--minutes 3] [--format wav|flac]`` (the runner,
-``python -m benchmarks``, takes its figures from ``main()``).
+Run: ``python benchmarks/bench_recording.py [--minutes 3] [--format wav|flac] [--parts]
+[--separate] [--page]`` (the runner, ``python -m benchmarks``, takes its figures from
+``main()``).
+The hour of the speed figures: ``--minutes 60 --format flac`` (heavy: run it once or twice).
 
 The page's sequence after a file is chosen, through the real app (Flask test client, real
-SQLite, real files through soundfile): POST /api/recordings (the upload; files up to 10
-minutes are probed and metered before it answers, longer ones in the background), POST
-/api/designs for the page's default route (the default preset, 44.1 -> 48 kHz), POST
-/api/spectra, GET /api/recordings/<id>/overview (when the app has it). The parts of the upload
-are also timed alone (probe, meters = loudness + true peak over the whole file).
+SQLite, real files through soundfile; the server's threads in this process):
 
-Reference beside the total: reading the file once with soundfile (all of it, in blocks), the
-least any analysis of the whole file costs. Wall and CPU seconds of this process.
+1. POST /api/recordings with the page's overview width (form field ``columns``): the file is
+   stored and probed; files up to 10 minutes are read once before the answer for the meters
+   (BS.1770 loudness, 16x true peak) and the overview, longer ones in the background;
+2. then, at once, as the page does: POST /api/designs for the default route (44.1 -> 48 kHz,
+   the default preset) followed by POST /api/spectra; GET /api/recordings/<id>/overview (it
+   answers from the upload's read, or waits for the background one); GET /api/recordings/<id>
+   until the meters are in (a long file).
 
-Figures only; nothing here asserts a time.
+"Ready" is when the meters, the spectra and the overview are all in: the target is 1 s for a
+3-minute file, 8 s for an hour. ``--separate`` also runs the sequence the page had before the
+one read (the upload without ``columns``: its meters read the file, then the overview reads it
+again), for a before/after in one run. ``--parts`` (default for files up to 10 minutes) times
+the parts of the one read alone, one after the other on one thread: reading the file, the
+loudness meter, the true-peak scan (16x interpolation for the true peak and the overs), the
+overview's columns; and beside them the two separate reads of before. ``--page`` also loads the
+file in the real page (Debian's chromium through Playwright, the real server on a loopback
+port): from choosing the file to its figures, its overview and its spectra drawn.
+
+Reference beside each figure: reading the file once with soundfile (all of it, in blocks), the
+least any analysis of the whole file costs. Wall and CPU seconds of this process (CPU counts
+every thread). Figures only; nothing here asserts a time.
 """
 
 import argparse
 import os
 import sys
 import tempfile
+import threading
 import time
 
 import numpy as np
 import soundfile as sf
+from threadpoolctl import threadpool_limits
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 from webapp import media  # noqa: E402
-from webapp.server.library import measure  # noqa: E402
+from webapp.dsp.loudness import LoudnessMeter  # noqa: E402
+from webapp.dsp.overs import TruePeakScan  # noqa: E402
+from webapp.overview import overview  # noqa: E402
+from webapp.pipeline import measure_file  # noqa: E402
 
 RATE_HZ = 44100
+#: The page's overview width in the benchmark (the page sends its plot's width in pixels).
+COLUMNS = 1200
+_BLOCK = 1 << 17
 
 
 def make_source(path, minutes, fmt, seed=7):
@@ -54,69 +77,238 @@ def timed(fn):
     return out, time.perf_counter() - t0, time.process_time() - c0
 
 
-def page_sequence(path):
-    """Wall/CPU seconds of upload, design and spectra through the app."""
+class _Steps:
+    """Start and end of each step of the sequence, from one origin, across threads."""
+
+    def __init__(self):
+        self.t0 = time.perf_counter()
+        self.spans = {}
+
+    def run(self, name, fn):
+        a = time.perf_counter()
+        out = fn()
+        self.spans[name] = (a - self.t0, time.perf_counter() - self.t0)
+        return out
+
+
+def page_sequence(path, *, columns):
+    """The page's requests after a file is chosen; ``columns=None``: the sequence before the
+    one read (the upload only measures, the overview reads the file again)."""
     from webapp.server import create_app
-    out = {}
     with tempfile.TemporaryDirectory() as inst:
         app = create_app({"TESTING": True, "LOAD_DEMO": False, "INSTANCE_PATH": inst})
-        client = app.test_client()
         headers = {"X-Rateferry-Token": app.config["PAGE_TOKEN"]}
         try:
-            options = client.get("/api/options").get_json()
-            preset = options.get("default_preset")
-
-            def upload():
-                with open(path, "rb") as f:
-                    return client.post("/api/recordings", headers=headers,
-                                       data={"file": (f, os.path.basename(path))},
-                                       content_type="multipart/form-data")
-            r, wall, cpu = timed(upload)
-            rec = r.get_json()
-            if r.status_code != 201:
-                raise RuntimeError(f"upload answered {r.status_code}: {rec}")
-            out["upload"] = dict(wall_s=wall, cpu_s=cpu)
-            deadline = time.perf_counter() + 600
-            while rec.get("meters", {}).get("analysis") == "pending":   # long files
-                if time.perf_counter() > deadline:
-                    raise RuntimeError("the background analysis did not finish in 10 minutes")
-                time.sleep(0.05)
-                rec = client.get(f"/api/recordings/{rec['id']}").get_json()
-            out["upload"]["analysis_wait_s"] = time.perf_counter() - deadline + 600
+            preset = app.test_client().get("/api/options").get_json()["default_preset"]
+            c0 = time.process_time()
+            steps = _Steps()
+            rec = steps.run("upload", lambda: _upload(app, headers, path, columns))
+            out = dict(overview_seconds=None)
             route = {"recording_id": rec["id"], "fs_out": 48000, "preset": preset, "spec": {}}
-            r, wall, cpu = timed(lambda: client.post("/api/designs", headers=headers,
-                                                     json=dict(route, plans=False)))
-            out["design"] = dict(wall_s=wall, cpu_s=cpu)
-            r, wall, cpu = timed(lambda: client.post("/api/spectra", headers=headers,
-                                                     json=route))
-            if r.status_code != 200:
-                raise RuntimeError(f"spectra answered {r.status_code}: {r.data[:300]!r}")
-            out["spectra"] = dict(wall_s=wall, cpu_s=cpu)
-            if "recording_overview" in options.get("urls", {}) or _has_overview(app):
-                r, wall, cpu = timed(lambda: client.get(f"/api/recordings/{rec['id']}/overview"))
-                if r.status_code != 200:
-                    raise RuntimeError(f"overview answered {r.status_code}: {r.data[:300]!r}")
-                out["overview"] = dict(wall_s=wall, cpu_s=cpu)
+
+            def design_then_spectra():
+                client = app.test_client()
+                _ok(steps.run("design", lambda: client.post(
+                    "/api/designs", headers=headers, json=dict(route, plans=False))))
+                _ok(steps.run("spectra", lambda: client.post("/api/spectra", headers=headers,
+                                                             json=route)))
+
+            def picture():
+                query = f"?columns={columns or COLUMNS}"
+                body = _ok(steps.run("overview", lambda: app.test_client().get(
+                    f"/api/recordings/{rec['id']}/overview{query}")))
+                out.update(overview_seconds=body["seconds"], overview_cached=body["cached"])
+
+            def meters():
+                client = app.test_client()
+                deadline = time.perf_counter() + 900
+                now = rec
+                a = time.perf_counter()
+                while now["analysis"] == "pending":
+                    if time.perf_counter() > deadline:
+                        raise RuntimeError("the background analysis did not finish in 15 min")
+                    time.sleep(0.02)
+                    now = client.get(f"/api/recordings/{rec['id']}").get_json()
+                steps.spans["meters"] = (a - steps.t0, time.perf_counter() - steps.t0)
+                out["analysis"] = now["analysis"]
+
+            _together(design_then_spectra, picture, meters)
+            out.update(ready_s=max(end for _, end in steps.spans.values()),
+                       cpu_s=time.process_time() - c0, steps=steps.spans,
+                       analysed_in_upload=rec["analysis"] == "done")
         finally:
             app.extensions["rateferry"].shutdown()
     return out
 
 
-def _has_overview(app):
-    return any(rule.rule.endswith("/overview") for rule in app.url_map.iter_rules())
+def _upload(app, headers, path, columns):
+    data = {"file": (open(path, "rb"), os.path.basename(path))}
+    if columns is not None:
+        data["columns"] = str(columns)
+    r = app.test_client().post("/api/recordings", headers=headers, data=data,
+                               content_type="multipart/form-data")
+    return _ok(r, 201)
+
+
+def _ok(r, status=200):
+    if r.status_code != status:
+        raise RuntimeError(f"{r.request.path} answered {r.status_code}: {r.data[:300]!r}")
+    return r.get_json()
+
+
+def _together(*fns):
+    errors = []
+
+    def guard(fn):
+        try:
+            fn()
+        except BaseException as exc:    # handed to the caller
+            errors.append(exc)
+    threads = [threading.Thread(target=guard, args=(fn,)) for fn in fns]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    if errors:
+        raise errors[0]
 
 
 def parts(path):
-    info, w_probe, c_probe = timed(lambda: media.probe(path))
-    _, w_meter, c_meter = timed(lambda: measure(path, info))
+    """The parts of the one read alone, one after the other on one thread (one BLAS thread),
+    and the two separate reads of before."""
+    info, w, c = timed(lambda: media.probe(path))
+    out = dict(probe=dict(wall_s=w, cpu_s=c))
+    blocks = []
 
-    def read_all():
-        for _ in media.read_blocks(path):
+    def read():
+        for b in media.read_blocks(path, blocksize=_BLOCK):
+            blocks.append(b)    # kept, so the meters below time their own work only
+    _, w, c = timed(read)
+    out["read"] = dict(wall_s=w, cpu_s=c)
+
+    def loudness():
+        meter = LoudnessMeter(rate_hz=info.rate_hz, channels=info.channels)
+        for b in blocks:
+            meter.process(b)
+        return meter.short_term_lufs()
+
+    def scan():
+        finder = TruePeakScan(rate_hz=info.rate_hz, channels=info.channels)
+        for b in blocks:
+            finder.process(b)
+        finder.finish()
+        return finder.result()
+
+    def columns():
+        from webapp.overview import _Columns
+        grid = _Columns(COLUMNS, info.frames)
+        for b in blocks:
+            grid.add(b)
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        for name, fn in (("loudness", loudness), ("true_peak_scan", scan),
+                         ("columns", columns)):
+            _, w, c = timed(fn)
+            out[name] = dict(wall_s=w, cpu_s=c)
+        blocks.clear()
+        _, w, c = timed(lambda: measure_file(path, info.rate_hz, info.channels))
+        out["before_meters"] = dict(wall_s=w, cpu_s=c)
+    _, w, c = timed(lambda: overview(path, columns=COLUMNS, probe=info))
+    out["before_overview"] = dict(wall_s=w, cpu_s=c)
+    return out
+
+
+CHROMIUM = "/usr/bin/chromium"
+
+# Choosing the file is done by Playwright; this waits until the page shows the new recording's
+# figures (meters in), its overview and its spectra, and a frame is painted.
+PAGE_READY = """async (name) => new Promise((resolve) => {
+  const t0 = performance.now();
+  const marks = {};
+  const check = () => {
+    const s = window.rateferry.state.get();
+    const rec = s.recording;
+    const mine = rec && rec.name === name;
+    const now = performance.now() - t0;
+    if (mine && !marks.loaded) marks.loaded = now;
+    if (mine && rec.analysis === 'done' && !marks.figures) marks.figures = now;
+    const ov = document.getElementById('overview-view');
+    if (mine && ov.dataset.recording === rec.id && document.getElementById('plot-overview').data
+        && !marks.overview) marks.overview = now;
+    if (mine && s.spectra && s.spectra.recording_id === rec.id
+        && document.getElementById('plot-spectra').data && !marks.spectra) marks.spectra = now;
+    if (marks.figures && marks.overview && marks.spectra) {
+      requestAnimationFrame(() => resolve({ ...marks, ready: performance.now() - t0 }));
+    } else {
+      setTimeout(check, 5);
+    }
+  };
+  check();
+})"""
+
+
+def page_times(path):
+    """Seconds from choosing ``path`` in the page to each part shown, or None without
+    chromium."""
+    if not os.path.exists(CHROMIUM):
+        return None
+    try:
+        from playwright.sync_api import sync_playwright
+    except ImportError:
+        return None
+    import socket
+    from werkzeug.serving import WSGIRequestHandler, make_server
+    from webapp.server import create_app
+
+    class Quiet(WSGIRequestHandler):
+        def log(self, *args, **kwargs):
             pass
-    _, w_read, c_read = timed(read_all)
-    return dict(probe=dict(wall_s=w_probe, cpu_s=c_probe),
-                meters=dict(wall_s=w_meter, cpu_s=c_meter),
-                read=dict(wall_s=w_read, cpu_s=c_read))
+
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    with tempfile.TemporaryDirectory() as inst:
+        app = create_app({"INSTANCE_PATH": inst, "SERVER_PORT": port})
+        httpd = make_server("127.0.0.1", port, app, threaded=True, request_handler=Quiet)
+        thread = threading.Thread(target=httpd.serve_forever, daemon=True)
+        thread.start()
+        try:
+            with sync_playwright() as p:
+                browser = p.chromium.launch(executable_path=CHROMIUM,
+                                            args=["--no-sandbox", "--disable-gpu"])
+                page = browser.new_page(viewport={"width": 1500, "height": 1000})
+                page.set_default_timeout(900000)
+                page.goto(f"http://127.0.0.1:{port}/")
+                page.wait_for_selector("body[data-ready='true']")
+                page.wait_for_function("() => document.getElementById('plot-spectra').data")
+                page.wait_for_timeout(1500)       # the demo's own work settles
+                # the watch starts before the file is chosen (a promise kept in the page)
+                page.evaluate(f"(name) => {{ window.__benchReady = ({PAGE_READY})(name); }}",
+                              os.path.basename(path))
+                page.set_input_files("#file-input", path)
+                marks = page.evaluate("() => window.__benchReady")
+                browser.close()
+        finally:
+            httpd.shutdown()
+            thread.join(timeout=10)
+            app.extensions["rateferry"].shutdown()
+    return {k: v / 1000.0 for k, v in marks.items()}
+
+
+def _sequence_rows(label, seq, ref, target):
+    rows = [dict(name=f"{label}: all ready, wall", value=seq["ready_s"], unit="s",
+                 reference=ref[0], reference_value=ref[1], **({"target": target} if target
+                                                               else {})),
+            dict(name=f"{label}: CPU (every thread)", value=seq["cpu_s"], unit="s",
+                 reference=ref[0], reference_value=ref[2])]
+    for step in ("upload", "design", "spectra", "overview", "meters"):
+        if step in seq["steps"]:
+            a, b = seq["steps"][step]
+            rows.append(dict(name=f"  {step}: {a:.3f} -> {b:.3f} s", value=b - a, unit="s"))
+    if seq.get("overview_seconds") is not None:
+        rows.append(dict(name="  the read that drew the overview", value=seq["overview_seconds"],
+                         unit="s"))
+    return rows
 
 
 def main(argv=None):
@@ -125,34 +317,56 @@ def main(argv=None):
     ap.add_argument("--minutes", type=float, default=3.0, help="recording length, default 3")
     ap.add_argument("--format", choices=("wav", "flac"), default="wav",
                     help="24-bit WAV (default) or 16-bit FLAC")
+    ap.add_argument("--parts", action=argparse.BooleanOptionalAction, default=None,
+                    help="time the parts alone (default: for files up to 10 minutes)")
+    ap.add_argument("--separate", action=argparse.BooleanOptionalAction, default=None,
+                    help="also the sequence of before: meters and overview in two reads "
+                         "(default: for files up to 10 minutes)")
+    ap.add_argument("--page", action="store_true",
+                    help="also load the file in the page (chromium through Playwright)")
     ap.add_argument("--tmp", default=None, help="folder for the temporary file")
     args = ap.parse_args(argv)
+    short = args.minutes <= 10
     with tempfile.TemporaryDirectory(dir=args.tmp) as tmp:
         path = os.path.join(tmp, f"programme.{args.format}")
         make_source(path, args.minutes, args.format)
         size_mb = os.path.getsize(path) / 1e6
-        seq = page_sequence(path)
-        alone = parts(path)
-    total = sum(v["wall_s"] for v in seq.values()) + seq["upload"]["analysis_wait_s"]
-    total_cpu = sum(v["cpu_s"] for v in seq.values())
+        _, read_w, read_c = timed(lambda: [None for _ in media.read_blocks(path,
+                                                                           blocksize=_BLOCK)])
+        seq = page_sequence(path, columns=COLUMNS)
+        before = page_sequence(path, columns=None) \
+            if (args.separate if args.separate is not None else short) else None
+        alone = parts(path) if (args.parts if args.parts is not None else short) else None
+        page = page_times(path) if args.page else None
     target = "< 1 s" if args.minutes <= 3 else ("< 8 s" if args.minutes >= 60 else None)
-    ref = "reading the file once"
-    rows = [dict(name="page sequence, wall", value=total, unit="s", reference=ref,
-                 reference_value=alone["read"]["wall_s"], **({"target": target} if target else {})),
-            dict(name="page sequence, CPU", value=total_cpu, unit="s", reference=ref,
-                 reference_value=alone["read"]["cpu_s"])]
-    for key, label in (("upload", "upload (probe + meters when <= 10 min)"),
-                       ("design", "design of the default route"), ("spectra", "spectra"),
-                       ("overview", "overview")):
-        if key in seq:
-            rows.append(dict(name=f"  {label}, wall", value=seq[key]["wall_s"], unit="s"))
-    for key in ("probe", "meters"):
-        rows.append(dict(name=f"  {key} alone, CPU", value=alone[key]["cpu_s"], unit="s",
-                         reference=ref, reference_value=alone["read"]["cpu_s"]))
+    ref = ("reading the file once", read_w, read_c)
+    rows = _sequence_rows("one read", seq, ref, target)
+    if before is not None:
+        rows += _sequence_rows("before (two reads)", before, ref, target)
+    if alone is not None:
+        for key, label in (("probe", "probe"), ("read", "read the file (soundfile)"),
+                           ("loudness", "loudness meter (BS.1770, short-term curve)"),
+                           ("true_peak_scan", "true-peak scan (16x: true peak + overs)"),
+                           ("columns", "overview columns (min, max, full scale)"),
+                           ("before_meters", "before: meters alone (measure_file)"),
+                           ("before_overview", "before: overview alone (its own read)")):
+            rows.append(dict(name=f"  alone, CPU: {label}", value=alone[key]["cpu_s"],
+                             unit="s", reference=ref[0], reference_value=read_c))
+    if args.page:
+        if page is None:
+            rows.append(dict(name="page: chosen -> all shown", value="skipped (no chromium)"))
+        else:
+            rows.append(dict(name="page: chosen -> all shown", value=page["ready"], unit="s",
+                             reference=ref[0], reference_value=read_w,
+                             **({"target": target} if target else {})))
+            for key, label in (("loaded", "recording in the page"),
+                               ("figures", "its meters shown"), ("overview", "overview drawn"),
+                               ("spectra", "spectra drawn")):
+                rows.append(dict(name=f"  page: {label}", value=page[key], unit="s"))
     title = (f"{args.minutes:g} min stereo {RATE_HZ} Hz "
              f"{'24-bit WAV' if args.format == 'wav' else '16-bit FLAC'} ({size_mb:.1f} MB) "
-             f"loaded in the page{'' if 'overview' in seq else ' (no overview endpoint)'}")
-    return dict(title=title, figures=rows, sequence=seq, alone=alone,
+             f"loaded in the page, overview {COLUMNS} columns")
+    return dict(title=title, figures=rows, sequence=seq, before=before, alone=alone, page=page,
                 load_average=list(os.getloadavg()))
 
 

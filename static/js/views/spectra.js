@@ -111,8 +111,19 @@ export function init(root, state) {
     }
   }
 
+  // during live edits the spectra wait until the design has rested; the first design of a
+  // newly loaded recording needs no wait
   const soon = debounce(load, 150);
-  state.on('design', soon);
+  let analysedFor = null;
+  state.on('design', (s) => {
+    const rec = s.recording;
+    if (rec && s.design && rec.id !== analysedFor && s.design.fs_in === rec.rate_hz) {
+      analysedFor = rec.id;
+      soon.now();
+    } else {
+      soon();
+    }
+  });
   state.on('designError', (s) => {
     stale.hidden = !s.designError;
     stale.textContent = s.designError ? 'These spectra belong to the last design that could be built.' : '';
