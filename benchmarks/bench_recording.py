@@ -54,6 +54,8 @@ RATE_HZ = 44100
 #: The page's overview width in the benchmark (the page sends its plot's width in pixels).
 COLUMNS = 1200
 _BLOCK = 1 << 17
+#: How often the sequence asks whether a long file's meters are in.
+POLL_S = 0.1
 
 
 def make_source(path, minutes, fmt, seed=7):
@@ -127,7 +129,7 @@ def page_sequence(path, *, columns):
                 while now["analysis"] == "pending":
                     if time.perf_counter() > deadline:
                         raise RuntimeError("the background analysis did not finish in 15 min")
-                    time.sleep(0.02)
+                    time.sleep(POLL_S)
                     now = client.get(f"/api/recordings/{rec['id']}").get_json()
                 steps.spans["meters"] = (a - steps.t0, time.perf_counter() - steps.t0)
                 out["analysis"] = now["analysis"]

@@ -1,10 +1,14 @@
 """The picture of a whole recording over time: min/max envelope at screen resolution, short-term
-loudness, and where the samples reach full scale or the true peak goes over (no Flask here).
+loudness, and where the samples reach full scale or the true peak goes over (no Flask here); and,
+from the same read, the recording's meters.
 
 One streaming pass in blocks (:func:`webapp.media.read_blocks`): memory stays flat whatever the
 duration (the loudness meter keeps one number per 100 ms: 36 000 an hour). The meters are the
-core's: :class:`webapp.dsp.loudness.LoudnessMeter` (BS.1770-4 / EBU Tech 3341 short-term
-loudness), :class:`webapp.dsp.overs.TruePeakOvers` (the true-peak meter's 16x interpolator).
+core's, as the conversion pipeline runs them (:class:`webapp.pipeline.Meters`): one
+:class:`webapp.dsp.loudness.LoudnessMeter` (BS.1770-4 integrated loudness and loudness range, and
+the EBU Tech 3341 short-term curve), one 16x scan per group of channels,
+:class:`webapp.dsp.overs.TruePeakScan` (the true peak and the overs in one pass of the true-peak
+meter's interpolator). The reader, the loudness meter and the scans run on their own threads.
 
 Conventions
 -----------
@@ -25,8 +29,7 @@ from threadpoolctl import threadpool_limits
 from webapp import media
 from webapp.threads import Stages, prefetch
 from webapp.dsp.errors import ParameterError
-from webapp.dsp.loudness import MIN_LOUDNESS_RATE_HZ, LoudnessMeter
-from webapp.dsp.overs import FULL_SCALE, TruePeakOvers, TruePeakScan, full_scale_frames
+from webapp.dsp.overs import FULL_SCALE, TruePeakScan, full_scale_frames, joined_result
 from webapp.pipeline import Meters
 
 __all__ = ["overview", "overview_and_meters", "DEFAULT_COLUMNS", "MAX_COLUMNS",
@@ -139,7 +142,8 @@ def overview(path, *, columns=DEFAULT_COLUMNS, over_threshold_dbtp=OVER_THRESHOL
     ------
     AudioFileError, ParameterError
     """
-    figures, _ = _read(path, columns, over_threshold_dbtp, probe, meters=False)
+    figures, _ = overview_and_meters(path, columns=columns,
+                                     over_threshold_dbtp=over_threshold_dbtp, probe=probe)
     return figures
 
 
@@ -147,61 +151,83 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
                         over_threshold_dbtp=OVER_THRESHOLD_DBTP, probe=None):
     """The overview and the recording's meters from one read of the file.
 
-    The same figures as :func:`overview` and as :func:`webapp.pipeline.measure_file` (the
-    loudness from the one BS.1770 meter that also gives the short-term curve; the true peak
-    from the one 16x pass that finds the overs, :class:`webapp.dsp.overs.TruePeakScan`).
+    The meters are those of :func:`webapp.pipeline.measure_file` (the pipeline's
+    :class:`~webapp.pipeline.Meters`): the loudness from the one BS.1770 meter that also gives
+    the short-term curve, the true peak from the 16x scan that also finds the overs
+    (:class:`webapp.dsp.overs.TruePeakScan`; the same reading to the float32 products'
+    rounding, about 1e-6 dB). :func:`overview` is this read without the meters.
 
     Returns
     -------
     (dict, dict)
         The overview (as :func:`overview`) and the meters (as
         :meth:`webapp.pipeline.Meters.result`).
+
+    Raises
+    ------
+    AudioFileError, ParameterError
     """
-    return _read(path, columns, over_threshold_dbtp, probe, meters=True)
-
-
-def _read(path, columns, over_threshold_dbtp, probe, *, meters):
     t0 = time.perf_counter()
     info = probe if probe is not None else media.probe(path)
     frames, rate = info.frames, info.rate_hz
     if frames == 0:
         raise ParameterError("the recording has no frames to draw", "recording_id")
     grid = _Columns(_columns(columns, frames), frames)
-    if meters:
-        # the pipeline's meters (their figures, their note below 8 kHz), with the true peak
-        # taken from the scan that also finds the overs
-        meter = Meters(rate, info.channels)
-        finder = meter.peak = TruePeakScan(rate_hz=rate, channels=info.channels,
-                                           threshold_dbtp=over_threshold_dbtp)
-        loud = meter.loud
-    else:
-        finder = TruePeakOvers(channels=info.channels, threshold_dbtp=over_threshold_dbtp)
-        loud = LoudnessMeter(rate_hz=rate, channels=info.channels) \
-            if rate >= MIN_LOUDNESS_RATE_HZ else None
+    meter = Meters(rate, info.channels)        # the pipeline's figures, their note below 8 kHz
+    scans = _ChannelScans(rate, info.channels, over_threshold_dbtp)
+    meter.peak = scans                         # its true peak from the scans for the overs
     found = []
-    # the true-peak search and the loudness meter run on their own threads, beside the reader
-    # and the columns; one BLAS thread for the interpolator's small products (more only fight
-    # over the cores)
+    # the scans (the largest part) and the loudness meter run on their own threads, beside
+    # the reader and the columns; one BLAS thread for the interpolator's small products (more
+    # only fight over the cores)
     with threadpool_limits(limits=1, user_api="blas"):
         with Stages() as stages:
-            search = stages.add(lambda block: found.append(finder.process(block)),
-                                "rateferry-overview-overs")
-            metering = None if loud is None else stages.add(loud.process,
-                                                            "rateferry-overview-loudness")
+            workers = [stages.add(lambda block, part=part: found.append(part.process(block)),
+                                  f"rateferry-overview-overs-{i}")
+                       for i, part in enumerate(scans.parts)]
+            if meter.loud is not None:
+                workers.append(stages.add(meter.loud.process, "rateferry-overview-loudness"))
             for block in prefetch(media.read_blocks(path, blocksize=_BLOCK_FRAMES)):
-                search.submit(block)
-                if metering is not None:
-                    metering.submit(block)
+                for worker in workers:
+                    worker.submit(block)
                 grid.add(block)
-        found.append(finder.finish())
-    for over in found:
-        grid.add_overs(over)
+        found.extend(part.finish() for part in scans.parts)
+    grid.add_overs(np.unique(np.concatenate(found)))
     figures = dict(
         rate_hz=rate, channels=info.channels, frames=frames, duration_s=frames / rate,
-        columns=grid.n, **grid.figures(rate, loud),
+        columns=grid.n, **grid.figures(rate, meter.loud),
         full_scale_level=FULL_SCALE, over_threshold_dbtp=float(over_threshold_dbtp),
         seconds=time.perf_counter() - t0)
-    return figures, (meter.result() if meters else None)
+    return figures, meter.result()
+
+
+#: The true-peak scan runs on at most this many threads (the machine's two cores).
+_SCAN_THREADS = 2
+
+
+class _ChannelScans:
+    """The true-peak scan of a recording in groups of channels, each group fed its own slice
+    of every block (on its own thread); the figures of the whole (``result``)."""
+
+    def __init__(self, rate, channels, threshold_dbtp):
+        edges = np.linspace(0, channels, min(channels, _SCAN_THREADS) + 1).round().astype(int)
+        self.parts = [_Slice(TruePeakScan(rate_hz=rate, channels=int(b - a),
+                                          threshold_dbtp=threshold_dbtp), int(a), int(b))
+                      for a, b in zip(edges[:-1], edges[1:])]
+
+    def result(self):
+        return joined_result([part.scan.result() for part in self.parts])
+
+
+class _Slice:
+    def __init__(self, scan, first, stop):
+        self.scan, self.first, self.stop = scan, first, stop
+
+    def process(self, block):
+        return self.scan.process(block[:, self.first:self.stop])
+
+    def finish(self):
+        return self.scan.finish()
 
 
 def _short_term_columns(loud, edges, rate):

@@ -23,7 +23,8 @@ from .errors import ParameterError
 from .loudness import TruePeakResult, channel_peaks, true_peak_oversampling
 from .oversample import EDGE_FRAMES, PeakInterpolator
 
-__all__ = ["FULL_SCALE", "full_scale_frames", "frame_peaks", "TruePeakOvers", "TruePeakScan"]
+__all__ = ["FULL_SCALE", "full_scale_frames", "frame_peaks", "TruePeakOvers", "TruePeakScan",
+           "joined_result"]
 
 FULL_SCALE = 32767 / 32768
 
@@ -167,6 +168,17 @@ class TruePeakScan(TruePeakOvers):
                               channel_true_peak_dbtp=channel_true,
                               channel_sample_peak_dbfs=channel_sample,
                               oversampling=self.oversampling)
+
+
+def joined_result(results):
+    """One :class:`~webapp.dsp.loudness.TruePeakResult` of a programme whose channels were
+    measured in groups (``results`` in channel order): the channel figures side by side, the
+    largest of them for the programme."""
+    true = tuple(v for r in results for v in r.channel_true_peak_dbtp)
+    sample = tuple(v for r in results for v in r.channel_sample_peak_dbfs)
+    return TruePeakResult(true_peak_dbtp=max(true), sample_peak_dbfs=max(sample),
+                          channel_true_peak_dbtp=true, channel_sample_peak_dbfs=sample,
+                          oversampling=results[0].oversampling)
 
 
 def _channel_max(envelope):
