@@ -140,6 +140,20 @@ def test_upload_loads_a_new_recording_and_a_bad_one_is_refused_beside_the_file_c
     assert "−12.0 dBTP" in facts
     wait_nyquist(page, "source", rate / 2)
     assert shape(figure(page, "plot-spectra"), "target_nyquist")["x0"] == 48000 / 2
+    # the overview was drawn by the upload's own read of the file (its answer was kept: "read
+    # ... earlier"), in the columns the page asked for (its plot's width in pixels when the
+    # upload started); its envelope is the sine's, +-0.25
+    page.wait_for_function("""() => {
+        const r = window.rateferry.state.get('recording');
+        return r && document.getElementById('overview-view').dataset.recording === r.id; }""")
+    assert "earlier" in page.inner_text("#overview-summary")
+    drawn = page.evaluate("""() => {
+        const gd = document.getElementById('plot-overview');
+        const max = gd.data.find((t) => t.meta === 'overview_max');
+        return { n: max.x.length, top: Math.max(...max.y),
+                 columns: window.rateferry.state.get('overviewColumns') }; }""")
+    assert drawn["n"] == drawn["columns"] and 200 <= drawn["columns"] <= 4000
+    assert drawn["top"] == pytest.approx(0.25, abs=1e-3)
 
     bad = tmp_path / "not_audio.wav"
     bad.write_bytes(b"this is not a RIFF file at all" * 10)
