@@ -49,7 +49,12 @@ _EFFICIENCY = {
 # One product call (numpy + BLAS dispatch, about 4 us), in multiply-adds at the kernel's peak
 _CALL_COST = {"float32": 200_000, "float64": 100_000}
 _MAX_COEFFS = 1 << 21      # coefficient elements allowed for the whole bank (8 MB in float32)
-TILE_ROWS = 256            # rows per product call: enough for BLAS to split over two threads
+# Rows per product call: BLAS splits a call of a few hundred rows over two threads at nearly
+# twice the speed of one, and thinner calls lose their dispatch cost; a tile's input frames
+# are capped so that routes with very long rows keep a small frame.
+_TILE_ROWS = 384
+_TILE_FRAMES = 1 << 18
+_MIN_TILE_ROWS = 32
 
 
 @dataclass(frozen=True, eq=False)
@@ -122,7 +127,12 @@ def _cost(up, down, taps, delay, blocks, size, dtype):
         widest = max(widest, width)
     if rows_out * widest > _MAX_COEFFS:
         return None
-    return widest > stride, (work + calls * _CALL_COST[dtype] / TILE_ROWS) / rows_out
+    tile = _tile_rows(stride)
+    return widest > stride, (work + calls * _CALL_COST[dtype] / tile) / rows_out
+
+
+def _tile_rows(stride):
+    return max(_MIN_TILE_ROWS, min(_TILE_ROWS, _TILE_FRAMES // stride))
 
 
 def _choose(up, down, taps, delay, dtype):
@@ -136,11 +146,13 @@ def _choose(up, down, taps, delay, dtype):
         unit = size // math.gcd(size, up)
         options = {1, k0, k0 + 1, k0 + 2, k0 + 3, -(-k0 // unit) * unit}
         for blocks in sorted(options):
-            if blocks * up < size or blocks > 2 * k0 + 8:
+            if blocks * up < size or blocks > 2 * k0 + 8:     # too thin, or a needlessly long row
                 continue
             c = _cost(up, down, taps, delay, blocks, size, dtype)
             if c is not None and (best is None or c < best[0]):
                 best = (c, blocks, size)
+    if best is None:        # every layout is over the budget: the thinnest row
+        return 1, min(up, min(_EFFICIENCY[dtype]))
     return best[1], best[2]
 
 
@@ -177,7 +189,7 @@ def _build(h, up, down, delay, dtype):
     lo = min(s.base for s in stacks)
     hi = max(s.base + (s.groups - 1) * s.step + s.width for s in stacks)
     copy = max(s.width for s in stacks) > stride
-    tile = TILE_ROWS
+    tile = _tile_rows(stride)
     span = (tile - 1) * stride + hi - lo
     return Layout(blocks, rows_out, stride, tuple(stacks), lo, hi, copy, macs / rows_out,
                   tile, span, tile * stride)
