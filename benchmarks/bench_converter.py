@@ -101,7 +101,8 @@ def bench_route(fs_in, fs_out, *, seconds, arithmetic, repeats=5, attenuation_db
         layout=None if layout is None else dict(
             blocks=layout.blocks, stride=layout.stride,
             groups=[[int(s.groups), s.size, s.width] for s in layout.stacks],
-            macs_per_output=round(layout.macs_per_output, 1), tile_rows=layout.tile_rows),
+            macs_per_output=round(layout.macs_per_output, 1),
+            tile_rows=getattr(layout, "tile_rows", None)),
     )
 
 

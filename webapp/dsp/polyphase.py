@@ -4,7 +4,9 @@ Conventions
 -----------
 * Data is frames x channels; every converter is stateful: ``process(block)`` returns the output
   frames that are complete so far, ``flush()`` returns the rest. Any split of the input into
-  blocks gives the same output (to rounding).
+  blocks gives the same output; the exact converter holds that to the last bit (its products
+  run in tiles of one fixed shape, see bank.py), so a recipe re-run with another block size
+  writes the same bytes.
 * Alignment: a linear-phase converter removes its own delay, so output frame n sits at time
   n / fs_out of the input; a minimum-phase one keeps its (small, reported) delay. The output
   of a whole signal of ``frames`` frames has ``ceil(frames * up / down)`` frames.
@@ -15,7 +17,7 @@ output n = qL + r, with p = rM + D = a_r L + b_r, is
     y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j].
 A row of K*L outputs (K blocks) is split into groups of neighbouring residues; each group is one
 dense product of a strided view of the input (read in place by BLAS, see bank.py) with a small
-coefficient matrix. Channels are laid end to end so they stack as more rows of one product.
+coefficient matrix, a tile of rows per product call.
 """
 
 from fractions import Fraction
@@ -39,6 +41,12 @@ _MIN_STRETCH = 64           # arbitrary path: read windows in place when stretch
 def output_length(frames, up, down):
     """ceil(frames * up / down): the output length of a whole signal."""
     return -(-int(frames) * int(up) // int(down))
+
+
+def _channel_count(channels):
+    if channels < 1:
+        raise ParameterError(f"channels must be at least 1, got {channels}", "channels")
+    return int(channels)
 
 
 def _as_block(block, channels, dtype):
@@ -71,9 +79,7 @@ class _Streaming(_Output):
     """Shared buffer handling: channel-major input buffer with an absolute start index."""
 
     def _init_stream(self, channels, dtype, pre):
-        if channels < 1:
-            raise ParameterError(f"channels must be at least 1, got {channels}", "channels")
-        self.channels = int(channels)
+        self.channels = _channel_count(channels)
         self.dtype = np.dtype(dtype)
         self._pre = int(pre)
         self.reset()
@@ -128,12 +134,13 @@ class PolyphaseConverter(_Output):
     :func:`~webapp.dsp.bank.bank_layout`; products in float32 accumulate in float32 (about
     -125 dB relative error, measured), so masks beyond about 120 dB want float64.
 
-    Outputs are made a *tile* at a time: a fixed number of rows, starting at a multiple of
-    that number, every channel in one product of one fixed shape. A BLAS product's rounding
-    depends on where a row sits in the call and on the call's shape, so fixed tiles make
-    every output bit the same for any split of the input into blocks. Input waits in the
-    tile's frame until the tile is complete (at most one tile of latency; ``flush`` pads
-    the last one with zeros).
+    Outputs are made a *tile* at a time: a fixed number of rows starting at a multiple of
+    that number, each channel a product of one fixed shape. A BLAS product's rounding depends
+    on where a row sits in the call and on the call's shape, so fixed tiles make every output
+    bit the same for any split of the input into blocks (at a given number of BLAS threads:
+    OpenBLAS's float32 kernels round differently when a call is shared between threads; the
+    file pipeline always holds one). Input waits in the tile's frame until the tile is
+    complete, at most one tile of latency; ``flush`` pads the end with zeros.
     """
 
     def __init__(self, taps, up, down, *, channels=1, dtype="float64", delay=None):
@@ -142,9 +149,7 @@ class PolyphaseConverter(_Output):
         if self.up < 1 or self.down < 1 or math.gcd(self.up, self.down) != 1:
             raise ParameterError(f"up/down must be coprime positive integers, got {up}/{down}",
                                  "up")
-        if channels < 1:
-            raise ParameterError(f"channels must be at least 1, got {channels}", "channels")
-        self.channels = int(channels)
+        self.channels = _channel_count(channels)
         self.dtype = np.dtype(dtype)
         self.numtaps = h.size
         self.delay = (h.size - 1) // 2 if delay is None else int(delay)
