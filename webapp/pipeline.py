@@ -17,6 +17,7 @@ everything streams in blocks. Every decision is made by :mod:`webapp.jobs` and
 """
 
 from dataclasses import asdict, dataclass, field
+import functools
 import math
 import os
 import time
@@ -127,10 +128,12 @@ class Meters:
             self.loud, self.note = None, exc.message
         self.peak = TruePeakMeter(rate_hz=rate, channels=channels)
 
-    def process(self, x):
+    def process(self, x, *, checked=False):
+        """Measure one block; ``checked``: finite float frames x channels already (a block
+        read by :func:`webapp.media.read_blocks`, or samples the pipeline made)."""
         if self.loud is not None:
-            self.loud.process(x)
-        self.peak.process(x)
+            self.loud.process(x, checked=checked)
+        self.peak.process(x, checked=checked)
 
     def result(self):
         pr = self.peak.result()
@@ -144,6 +147,20 @@ class Meters:
         if self.note:
             out["analysis_note"] = f"no loudness: {self.note}"
         return out
+
+
+class _MeterStages:
+    """A :class:`Meters`' loudness and true-peak meters, each on its own background stage (the
+    two cost about the same; both read the block, neither changes it)."""
+
+    def __init__(self, stages, meters, name):
+        parts = [("loudness", meters.loud), ("true-peak", meters.peak)]
+        self._stages = [stages.add(functools.partial(m.process, checked=True), f"{name}-{kind}")
+                        for kind, m in parts if m is not None]
+
+    def submit(self, block):
+        for stage in self._stages:
+            stage.submit(block)
 
 
 def _finite(v):
@@ -253,8 +270,8 @@ def _measure_pass(job, source_meters, cancel, progress):
     """First pass: the delivered layout's converted signal at unity gain, measured."""
     conv, first = _converter(job), Meters(job.fs_out, job.channels_out)
     with Stages() as stages:
-        source_stage = stages.add(source_meters.process, "rateferry-source-meters")
-        first_stage = stages.add(first.process, "rateferry-output-meters")
+        source_stage = _MeterStages(stages, source_meters, "rateferry-source")
+        first_stage = _MeterStages(stages, first, "rateferry-output")
         for block in _source_blocks(job, _layout(job), cancel, progress, source_stage):
             first_stage.submit(conv.process(block))
         first_stage.submit(conv.flush())
@@ -266,7 +283,7 @@ def measure_file(path, rate_hz, channels):
     output decoded again to verify it."""
     meters = Meters(rate_hz, channels)
     for block in media.read_blocks(path, blocksize=BLOCK_FRAMES):
-        meters.process(block)
+        meters.process(block, checked=True)     # read_blocks checks every sample
     return meters.result()
 
 
@@ -326,11 +343,11 @@ def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunk
     try:
         with Stages() as stages:
             write_stage = stages.add(writer.write, "rateferry-writer")
-            meter_stage = stages.add(out_meters.process, "rateferry-output-meters")
+            meter_stage = _MeterStages(stages, out_meters, "rateferry-output")
             quant_stage = stages.add(quantize, "rateferry-quantizer") if quant else None
             limit_stage = stages.add(limit, "rateferry-limiter") if limiter else None
-            source_stage = None if source_meters is None else stages.add(
-                source_meters.process, "rateferry-source-meters")
+            source_stage = None if source_meters is None else _MeterStages(
+                stages, source_meters, "rateferry-source")
             frames_read = 0
             for block in _source_blocks(job, _layout(job), cancel, progress, source_stage):
                 deliver(conv.process(block))
