@@ -27,7 +27,7 @@ from threadpoolctl import threadpool_limits
 
 from . import __version__
 from . import media, riff, riffchunks
-from .threads import Stages, prefetch
+from .threads import Background, Stages, prefetch
 from .dsp.channels import apply_layout
 from .dsp.dither import Quantizer
 from .dsp.limiter import TruePeakLimiter
@@ -369,6 +369,12 @@ def _execute(job, *, progress, cancel, tags_comment):
     src, source, target = job.probe, job.source, job.target
     fs_in, fs_out, delivery, out_plan = job.fs_in, job.fs_out, job.delivery, job.output
     media.refuse_same_file(source, target)
+    # the source's sha256 on a thread of its own, beside the conversion rather than after it
+    # (on an error it is left to finish on its own: a daemon thread that only reads)
+    hashes = []
+    source_hash = Background(lambda path: hashes.append(media.sha256_file(path)),
+                             name="rateferry-source-hash")
+    source_hash.submit(source)
     tracker = _Progress(job, progress)
     source_meters = Meters(fs_in, src.channels)
     if job.passes == 2:
@@ -403,6 +409,7 @@ def _execute(job, *, progress, cancel, tags_comment):
             attempt, done, source_stage = again.attempt, done + 1, None
             tracker.more(src.frames)
     tracker.report()
+    source_hash.finish()
     verdict = verdicts[0]
     warnings += short_source_warnings(source, written["frames_read"],
                                       max(src.frames, riff.declared_frames(source) or 0))
@@ -427,7 +434,7 @@ def _execute(job, *, progress, cancel, tags_comment):
         output_meters=verdict["written_meters"],
         clipped_samples=int(quant.clipped_samples) if quant is not None else 0,
         passes=job.passes, block_frames=int(job.block_frames),
-        source_sha256=media.sha256_file(source), output_sha256=media.sha256_file(target),
+        source_sha256=hashes[0], output_sha256=media.sha256_file(target),
         warnings=warnings, channels_out=job.channels_out, filter_applied=job.filter_applied,
         delivery_report=report, time_base=job.time_base, speed=job.speed)
 
