@@ -7,7 +7,10 @@
 Each route is timed streaming (blocks of 65536 frames, as the file pipeline feeds it) and
 scipy.signal.upfirdn on the whole signal; they are timed in turn, repeat by repeat, and the
 best of each is kept, so a busy moment on a shared machine hits both alike; the CPU-time
-ratio (all threads' CPU seconds) is printed too, steadier when other work shares the cores.
+ratio is printed too, steadier when other work shares the cores. CPU seconds are the calling
+thread's for the one-thread runs and scipy, and the whole process's with BLAS threads (which
+then include its helper threads' waiting, as OpenBLAS threads spin for a while after a call,
+and are coarse on some kernels: treat that one as a rough figure).
 
 Two settings of the BLAS library, both in the same run: its default threads (every core; or
 ``--blas-threads N``), and one thread, which is how the file pipeline runs the converter
@@ -47,10 +50,10 @@ def _blas_threads():
                default=1)
 
 
-def _timed(fn):
-    t0, c0 = time.perf_counter(), time.process_time()
+def _timed(fn, clock):
+    t0, c0 = time.perf_counter(), clock()
     fn()
-    return time.perf_counter() - t0, time.process_time() - c0
+    return time.perf_counter() - t0, clock() - c0
 
 
 def bench_route(fs_in, fs_out, *, seconds, arithmetic, repeats=5, attenuation_db=120.0,
@@ -74,6 +77,7 @@ def bench_route(fs_in, fs_out, *, seconds, arithmetic, repeats=5, attenuation_db
         signal.upfirdn(taps, x, d.up, d.down, axis=0)
 
     settings = {"main": blas_threads, "one": 1}
+    clocks = {"main": time.process_time, "one": time.thread_time, "ref": time.thread_time}
     best = {k: [float("inf"), float("inf")] for k in ("main", "one", "ref")}
     with _blas_limit(blas_threads):
         threads = _blas_threads()
@@ -81,7 +85,7 @@ def bench_route(fs_in, fs_out, *, seconds, arithmetic, repeats=5, attenuation_db
     for _ in range(repeats):
         for key, fn in (("main", ours), ("one", ours), ("ref", reference)):
             with _blas_limit(settings.get(key, 1)):
-                wall, cpu = _timed(fn)
+                wall, cpu = _timed(fn, clocks[key])
             best[key] = [min(best[key][0], wall), min(best[key][1], cpu)]
     (t_ours, c_ours), (t_one, c_one), (t_ref, c_ref) = best["main"], best["one"], best["ref"]
     out_frames = fs_out * seconds
@@ -91,7 +95,7 @@ def bench_route(fs_in, fs_out, *, seconds, arithmetic, repeats=5, attenuation_db
         numtaps=d.numtaps, taps_per_phase=d.taps_per_phase, method=d.method,
         seconds_audio=seconds, channels=2, blas_threads=threads,
         rateferry_s=t_ours, scipy_upfirdn_s=t_ref, speedup_vs_scipy=t_ref / t_ours,
-        # CPU seconds (all threads): steadier than wall time on a shared machine
+        # CPU seconds: steadier than wall time on a shared machine
         rateferry_cpu_s=c_ours, scipy_upfirdn_cpu_s=c_ref, cpu_ratio=c_ref / max(c_ours, 1e-9),
         # one BLAS thread, as the file pipeline runs it
         rateferry_1thread_s=t_one, rateferry_1thread_cpu_s=c_one,
@@ -146,7 +150,7 @@ def print_table(result):
     for r in result["routes"]:
         print(f"{r['route']:>14} {r['arithmetic']:>8} {r['taps_per_phase']:>4} "
               f"{r['scipy_upfirdn_s']:8.4f} "
-              f"{r['rateferry_s']:8.4f} {r['speedup_vs_scipy']:7.1f}x {r['cpu_ratio']:8.1f}x {'':>2}"
+              f"{r['rateferry_s']:8.4f} {r['speedup_vs_scipy']:7.1f}x {r['cpu_ratio']:8.1f}x   "
               f"{r['rateferry_1thread_s']:8.4f} {r['speedup_1thread']:7.1f}x "
               f"{r['cpu_ratio_1thread']:8.1f}x {'':>2}{r['target_speedup']:6.0f}x")
     print("load average (1, 5, 15 min): " + ", ".join(f"{v:.2f}" for v in result["load_average"]))
