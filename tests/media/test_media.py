@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from webapp import media
+from webapp import __version__, media
 from webapp.dsp.errors import AudioFileError, ParameterError
 from webapp.media import (
     OUTPUT_FORMATS, TAG_NAMES, TAG_SUPPORT, WORD_LENGTHS, AtomicWriter, OutputPlan, Probe,
@@ -40,7 +40,7 @@ def test_public_defaults_are_pinned():
     assert params["dtype"].default == "float64"
     assert params["start"].default == 0
     assert params["frames"].default == -1
-    assert converted_comment(44100, 48000) == "Converted 44100 -> 48000 Hz by Rateferry 0.1.0"
+    assert converted_comment(44100, 48000) == f"Converted 44100 -> 48000 Hz by Rateferry {__version__}"
 
 
 # --------------------------------------------------------------------------------------------
@@ -571,7 +571,7 @@ def test_tags_survive_wav_to_flac_with_the_conversion_comment(tmp_audio, rng, tm
         back = f.copy_metadata()
     for key in ("title", "artist", "copyright", "date", "album", "tracknumber", "genre"):
         assert back[key] == tags[key], key
-    assert back["comment"] == "rough cut; Converted 44100 -> 48000 Hz by Rateferry 0.1.0"
+    assert back["comment"] == f"rough cut; Converted 44100 -> 48000 Hz by Rateferry {__version__}"
     assert back["software"].startswith("Field recorder 2")
 
 
