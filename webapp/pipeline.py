@@ -149,18 +149,12 @@ class Meters:
         return out
 
 
-class _MeterStages:
-    """A :class:`Meters`' loudness and true-peak meters, each on its own background stage (the
-    two cost about the same; both read the block, neither changes it)."""
-
-    def __init__(self, stages, meters, name):
-        parts = [("loudness", meters.loud), ("true-peak", meters.peak)]
-        self._stages = [stages.add(functools.partial(m.process, checked=True), f"{name}-{kind}")
-                        for kind, m in parts if m is not None]
-
-    def submit(self, block):
-        for stage in self._stages:
-            stage.submit(block)
+def _meter_stage(stages, meters, name):
+    """``meters`` on a background stage of their own, taking blocks the pipeline made or read
+    (finite float frames x channels already). Loudness and true peak share the one thread:
+    measured, a thread each cost more CPU in all (4.4-5.0 s against 4.0-4.2 s for ten minutes
+    of stereo) and more time."""
+    return stages.add(functools.partial(meters.process, checked=True), name)
 
 
 def _finite(v):
@@ -270,8 +264,8 @@ def _measure_pass(job, source_meters, cancel, progress):
     """First pass: the delivered layout's converted signal at unity gain, measured."""
     conv, first = _converter(job), Meters(job.fs_out, job.channels_out)
     with Stages() as stages:
-        source_stage = _MeterStages(stages, source_meters, "rateferry-source")
-        first_stage = _MeterStages(stages, first, "rateferry-output")
+        source_stage = _meter_stage(stages, source_meters, "rateferry-source-meters")
+        first_stage = _meter_stage(stages, first, "rateferry-output-meters")
         for block in _source_blocks(job, _layout(job), cancel, progress, source_stage):
             first_stage.submit(conv.process(block))
         first_stage.submit(conv.flush())
@@ -343,11 +337,11 @@ def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunk
     try:
         with Stages() as stages:
             write_stage = stages.add(writer.write, "rateferry-writer")
-            meter_stage = _MeterStages(stages, out_meters, "rateferry-output")
+            meter_stage = _meter_stage(stages, out_meters, "rateferry-output-meters")
             quant_stage = stages.add(quantize, "rateferry-quantizer") if quant else None
             limit_stage = stages.add(limit, "rateferry-limiter") if limiter else None
-            source_stage = None if source_meters is None else _MeterStages(
-                stages, source_meters, "rateferry-source")
+            source_stage = None if source_meters is None else _meter_stage(
+                stages, source_meters, "rateferry-source-meters")
             frames_read = 0
             for block in _source_blocks(job, _layout(job), cancel, progress, source_stage):
                 deliver(conv.process(block))
