@@ -3,6 +3,7 @@
     python benchmarks/bench_pipeline.py                   # 2 minutes of stereo
     python benchmarks/bench_pipeline.py --minutes 60      # the hour of the speed figures
     python benchmarks/bench_pipeline.py --memory 2 10     # rateferry's peak RSS against duration
+    python benchmarks/bench_pipeline.py --stages          # CPU seconds of each pipeline thread
 
 The source is N minutes of speech-like stereo (noise through two resonances under a syllable
 envelope with pauses), 44.1 kHz 16-bit FLAC; the target 48 kHz 16-bit FLAC with TPDF dither.
@@ -150,6 +151,51 @@ def memory_vs_duration(minutes_list):
     return rows
 
 
+def stage_seconds(minutes):
+    """CPU seconds of each thread of one ``rateferry convert`` run in this process: the stages
+    (:class:`webapp.threads.Background`), the reader (:func:`webapp.threads.prefetch`) and the
+    main thread (the converter). Timed with ``time.thread_time`` around each item."""
+    import collections
+    from webapp import pipeline, threads
+    from webapp.cli import main as cli_main
+    cpu = collections.defaultdict(float)
+    plain_run, plain_prefetch = threads.Background._run, pipeline.prefetch
+
+    def timed_run(stage):
+        t = time.thread_time()
+        try:
+            plain_run(stage)
+        finally:
+            cpu[stage._thread.name] += time.thread_time() - t
+
+    def timed_prefetch(blocks, depth=3):
+        def reading():
+            t = time.thread_time()
+            try:
+                yield from blocks
+            finally:
+                cpu["rateferry-reader"] += time.thread_time() - t
+        return plain_prefetch(reading(), depth=depth)
+
+    threads.Background._run, pipeline.prefetch = timed_run, timed_prefetch
+    try:
+        with tempfile.TemporaryDirectory() as tmp:
+            src = os.path.join(tmp, "speech.flac")
+            make_source(src, minutes)
+            t0, c0, m0 = time.perf_counter(), time.process_time(), time.thread_time()
+            cli_main(["convert", src, os.path.join(tmp, "out.flac"), "--to", str(RATE_OUT),
+                      "--bits", "16", "--dither", "tpdf", "--silent"])
+            wall, total = time.perf_counter() - t0, time.process_time() - c0
+            cpu["main thread (converter)"] = time.thread_time() - m0
+    finally:
+        threads.Background._run, pipeline.prefetch = plain_run, plain_prefetch
+    rows = [dict(name=name, value=round(v, 3), unit="CPU s") for name, v in
+            sorted(cpu.items(), key=lambda kv: -kv[1])]
+    return dict(title=f"rateferry convert, {minutes:g} min: CPU seconds per thread "
+                      f"(wall {wall:.2f} s, CPU {total:.2f} s, load {os.getloadavg()[0]:.2f})",
+                figures=rows)
+
+
 def figures(p):
     floor, ours, plain = p["io_floor"], p["rateferry_convert"], p["plain_scipy"]
     ref = "I/O floor (FLAC decode + encode)"
@@ -176,7 +222,11 @@ def main(argv=None):
                     help="durations in minutes for rateferry's peak RSS against duration")
     ap.add_argument("--tmp", default=None, help="folder for the temporary files")
     ap.add_argument("--json", action="store_true", help="print the result as JSON")
+    ap.add_argument("--stages", action="store_true",
+                    help="CPU seconds of each pipeline thread, one in-process run")
     args = ap.parse_args(argv)
+    if args.stages:
+        return stage_seconds(args.minutes)
     if args.memory:
         return dict(title="rateferry convert: peak RSS against duration",
                     memory=memory_vs_duration(args.memory))
@@ -188,6 +238,10 @@ def main(argv=None):
 
 def print_table(result):
     print(result["title"])
+    if "io_floor" not in result and "memory" not in result:
+        for r in result["figures"]:
+            print(f"  {r['name']:36s} {r['value']:7.2f} {r['unit']}")
+        return
     if "memory" in result:
         for r in result["memory"]:
             print(f"{r['minutes']:6g} min: {r['seconds']:7.1f} s, peak RSS {r['peak_rss_mb']:.1f} MB")

@@ -11,6 +11,25 @@ def rng():
     return np.random.default_rng(20261201)
 
 
+def _speech_bursts(rng, frames, rate_hz):
+    """Speech-like bursts of noise with pauses (only a test signal): on for 0.3-1.5 s at a level
+    of 0.3-1.0, off for 0.1-0.6 s."""
+    x = rng.standard_normal(frames)
+    env = np.zeros(frames)
+    i = 0
+    while i < frames:
+        on = int(rng.uniform(0.3, 1.5) * rate_hz)
+        env[i:i + on] = rng.uniform(0.3, 1.0)
+        i += on + int(rng.uniform(0.1, 0.6) * rate_hz)
+    return x * env
+
+
+@pytest.fixture(scope="session")
+def speech_bursts():
+    """Return ``make(rng, frames, rate_hz) -> 1-D array``: speech-like bursts with pauses."""
+    return _speech_bursts
+
+
 @pytest.fixture
 def tmp_audio(tmp_path):
     """Return ``make(name, data, rate_hz, *, subtype=None, format=None, tags=None) -> path``.

@@ -32,24 +32,12 @@ def run(capsys, *argv):
     return code, out, err
 
 
-def _talk(rng, frames):
-    """Speech-like bursts of noise with pauses (only a test signal)."""
-    x = rng.standard_normal(frames)
-    env = np.zeros(frames)
-    i = 0
-    while i < frames:
-        on = int(rng.uniform(0.3, 1.5) * FS)
-        env[i:i + on] = rng.uniform(0.3, 1.0)
-        i += on + int(rng.uniform(0.1, 0.6) * FS)
-    return x * env
-
-
-def _pair(rng, seconds, up, down, late_s):
+def _pair(talk, rng, seconds, up, down, late_s):
     """(reference, track): two voices, each louder on its own recorder; the track made by
     resample_poly(up, down) with ``late_s`` of other content in front, another level, its own
     noise and a low-pass filter."""
     n = int(seconds * FS)
-    a, b = _talk(rng, n + 4 * FS), _talk(rng, n + 4 * FS)
+    a, b = talk(rng, n + 4 * FS, FS), talk(rng, n + 4 * FS, FS)
     ref = 0.2 * (a + 0.3 * b) + 0.002 * rng.standard_normal(a.size)
     trk = signal.resample_poly(0.3 * a + b, up, down)
     sos = signal.butter(4, 5000, fs=FS, output="sos")
@@ -59,17 +47,17 @@ def _pair(rng, seconds, up, down, late_s):
 
 
 @pytest.fixture(scope="module")
-def pairs(tmp_path_factory):
+def pairs(tmp_path_factory, speech_bursts):
     """Two pairs on disk: +25 ppm starting 0.3 s late, -25 ppm starting 0.25 s early."""
     folder = tmp_path_factory.mktemp("pairs")
     rng = np.random.default_rng(20261201)
-    ref, fast = _pair(rng, 75, 40001, 40000, 0.3)
+    ref, fast = _pair(speech_bursts, rng, 75, 40001, 40000, 0.3)
     paths = dict(ref=folder / "host.wav", fast=folder / "guest_fast.wav",
                  early=folder / "guest_early.wav")
     sf.write(paths["ref"], ref, FS, subtype="PCM_24")
     sf.write(paths["fast"], fast, FS, subtype="PCM_24")
     # the early track: the same reference content, cut 0.25 s into its (slow) clock
-    ref2, slow = _pair(np.random.default_rng(7), 75, 39999, 40000, 0.0)
+    ref2, slow = _pair(speech_bursts, np.random.default_rng(7), 75, 39999, 40000, 0.0)
     paths["ref2"] = folder / "host2.wav"
     sf.write(paths["ref2"], ref2, FS, subtype="PCM_24")
     sf.write(paths["early"], slow[int(0.25 * FS):], FS, subtype="PCM_24")

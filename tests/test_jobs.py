@@ -176,6 +176,18 @@ def test_compare_recipes_ignores_names_and_dates_and_nothing_else():
     assert jobs.compare_recipes(a, b) == [("gain_db", -1.0, -1.001)]
 
 
+def test_a_mismatch_under_another_version_names_both_versions():
+    a = {"software": {"name": "rateferry", "version": "0.1.0"}, "output": {"sha256": "aa"}}
+    b = {"software": {"name": "rateferry", "version": "0.2.0"}, "output": {"sha256": "aa"}}
+    assert jobs.compare_recipes(a, b) == []          # another version alone is no difference
+    b["output"]["sha256"] = "bb"
+    diffs = jobs.compare_recipes(a, b)
+    assert diffs == [("output.sha256", "aa", "bb"), ("software.version", "0.1.0", "0.2.0")]
+    message = jobs.RecipeMismatch(diffs).message
+    assert message.startswith("the re-run does not reproduce the recipe: output.sha256 is 'bb'")
+    assert "written by Rateferry 0.1.0 and this is 0.2.0" in message
+
+
 # ---------------------------------------------------------------------------------------------
 # the house rules of the application floor
 

@@ -1,3 +1,3 @@
 """Rateferry: sample-rate conversion with a specified and verified filter."""
 
-__version__ = "0.1.0"
+__version__ = "0.2.0"

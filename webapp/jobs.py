@@ -283,6 +283,11 @@ class RecipeMismatch(ParameterError):
         if more:
             names = ", ".join(d[0] for d in self.differences[1:6])
             text += f" (and {more} more: {names}{', ...' if more > 5 else ''})"
+        versions = [d for d in self.differences if d[0] == "software.version"]
+        if versions:
+            text += (f"; the recipe was written by Rateferry {versions[0][1]} and this is "
+                     f"{versions[0][2]}: re-run it with {versions[0][1]} to reproduce it bit for "
+                     f"bit")
         super().__init__(text, first[0])
 
 
@@ -350,6 +355,11 @@ def compare_recipes(recorded, rerun):
             diffs.append((key, a.get(key), b.get(key)))
     # the output bytes first: when they differ, that is what matters most
     diffs.sort(key=lambda d: d[0] != "output.sha256")
+    version = "software.version"
+    if diffs and a.get(version) != b.get(version):
+        # not a difference on its own, but the likely reason for the others: another version
+        # may sum in another order and round the last bit of a sample differently
+        diffs.append((version, a.get(version), b.get(version)))
     return diffs
 
 

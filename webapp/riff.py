@@ -13,7 +13,7 @@ size "AIFF"/"AIFC", big-endian chunks; "COMM" holds numSampleFrames (u32 at byte
 
 import struct
 
-__all__ = ["declared_frames"]
+__all__ = ["declared_frames", "clear_peak_time"]
 
 _MAX_CHUNKS = 64
 
@@ -33,6 +33,33 @@ def declared_frames(path):
     except OSError:
         return None
     return None
+
+
+def clear_peak_time(path):
+    """Set the time stamp of the ``PEAK`` chunk that libsndfile writes into float WAV, RF64
+    and AIFF files to 0 (no time given), in place; True when there was one.
+
+    The chunk holds each channel's peak and where it is, and the seconds since 1970 when the
+    file was written: the one field that made two writes of the same samples differ, so a
+    re-run could not reproduce a recipe's SHA-256. Layout (from memory): u32 version, u32 time
+    stamp, then a (float value, u32 position) pair per channel.
+    """
+    with open(path, "r+b") as f:
+        head = f.read(12)
+        if len(head) < 12:
+            return False
+        if head[:4] in (b"RIFF", b"RF64") and head[8:12] == b"WAVE":
+            endian = "<"
+        elif head[:4] == b"FORM" and head[8:12] in (b"AIFF", b"AIFC"):
+            endian = ">"
+        else:
+            return False
+        for cid, size, at in _chunks(f, endian):
+            if cid == b"PEAK" and size >= 8:
+                f.seek(at + 4)
+                f.write(b"\0\0\0\0")
+                return True
+    return False
 
 
 def _chunks(f, endian):

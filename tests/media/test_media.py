@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 import soundfile as sf
 
-from webapp import media
+from webapp import __version__, media
 from webapp.dsp.errors import AudioFileError, ParameterError
 from webapp.media import (
     OUTPUT_FORMATS, TAG_NAMES, TAG_SUPPORT, WORD_LENGTHS, AtomicWriter, OutputPlan, Probe,
@@ -40,7 +40,7 @@ def test_public_defaults_are_pinned():
     assert params["dtype"].default == "float64"
     assert params["start"].default == 0
     assert params["frames"].default == -1
-    assert converted_comment(44100, 48000) == "Converted 44100 -> 48000 Hz by Rateferry 0.1.0"
+    assert converted_comment(44100, 48000) == f"Converted 44100 -> 48000 Hz by Rateferry {__version__}"
 
 
 # --------------------------------------------------------------------------------------------
@@ -571,7 +571,7 @@ def test_tags_survive_wav_to_flac_with_the_conversion_comment(tmp_audio, rng, tm
         back = f.copy_metadata()
     for key in ("title", "artist", "copyright", "date", "album", "tracknumber", "genre"):
         assert back[key] == tags[key], key
-    assert back["comment"] == "rough cut; Converted 44100 -> 48000 Hz by Rateferry 0.1.0"
+    assert back["comment"] == f"rough cut; Converted 44100 -> 48000 Hz by Rateferry {__version__}"
     assert back["software"].startswith("Field recorder 2")
 
 
@@ -651,3 +651,29 @@ def test_mp3_plan_refusals(tmp_path, kwargs, message):
 def test_mp3_kbps_is_refused_for_other_formats(tmp_path):
     with pytest.raises(ParameterError, match=r"mp3_kbps applies to \.mp3 outputs only"):
         output_plan(tmp_path / "x.wav", rate_hz=48000, channels=2, mp3_kbps=128)
+
+
+@pytest.mark.parametrize("ext", [".wav", ".aiff"])
+def test_float_outputs_of_the_same_samples_are_the_same_bytes_a_second_later(tmp_path, rng, ext):
+    # libsndfile writes a PEAK chunk into float WAV and AIFF files holding the time of writing
+    # in seconds; two writes of the same samples a second apart differed in those four bytes,
+    # so a re-run could not reproduce a recipe's sha256. The writer sets the stamp to 0.
+    import struct
+    import time
+    x = _noise(rng, 4800, 2)
+    digests = []
+    for i in range(2):
+        target = tmp_path / f"f{i}{ext}"
+        plan = output_plan(target, rate_hz=48000, channels=2, bits="32f")
+        with AtomicWriter(target, plan) as out:
+            out.write(x)
+        digests.append(sha256_file(target))
+        raw = target.read_bytes()
+        at = raw.find(b"PEAK")
+        assert at > 0                                   # libsndfile wrote its PEAK chunk
+        endian = "<" if ext == ".wav" else ">"
+        assert struct.unpack(endian + "I", raw[at + 12:at + 16])[0] == 0     # the time stamp
+        np.testing.assert_array_equal(sf.read(target, dtype="float32")[0], x.astype(np.float32))
+        if i == 0:
+            time.sleep(1.05)
+    assert digests[0] == digests[1]

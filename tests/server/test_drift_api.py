@@ -18,21 +18,10 @@ from webapp import drift_files
 FS = 16000
 
 
-def _talk(rng, frames):
-    x = rng.standard_normal(frames)
-    env = np.zeros(frames)
-    i = 0
-    while i < frames:
-        on = int(rng.uniform(0.3, 1.5) * FS)
-        env[i:i + on] = rng.uniform(0.3, 1.0)
-        i += on + int(rng.uniform(0.1, 0.6) * FS)
-    return x * env
-
-
 @pytest.fixture
-def pair(recording, rng):
+def pair(recording, rng, speech_bursts):
     n = 50 * FS
-    a = _talk(rng, n + 2 * FS)
+    a = speech_bursts(rng, n + 2 * FS, FS)
     ref = 0.25 * a[:n] + 0.002 * rng.standard_normal(n)
     trk = 0.2 * signal.resample_poly(a, 40001, 40000)
     trk = trk + 0.003 * rng.standard_normal(trk.size)

@@ -6,34 +6,55 @@ rM + D = a_r L + b_r is y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j] (the p
 Layout
 ------
 A *row* is K blocks of L outputs: R = K*L outputs from S = K*M new input frames. The row's
-outputs are cut into groups of about g neighbouring residues; group k reads the inputs
-``[q*S + base + k*step, ... + width)`` of row q and multiplies them by a ``width x g``
-coefficient matrix. Groups of one size form a *stack*, and a stack is a single ``np.matmul``
-of a (channels, groups, rows, width) strided view with a (groups, width, g) array, written
-straight into the output through a strided view.
+outputs are cut into groups of g neighbouring residues (and one smaller group for the rest);
+group k reads the inputs ``[q*S + base + k*step, ... + width)`` of row q and multiplies them
+by a ``width x g`` coefficient matrix. Groups of one size form a *stack*, and a stack is a
+single ``np.matmul`` of a (channels, groups, rows, width) strided view with a
+(groups, width, g) array, written straight into the output through a strided view.
 
 When ``width <= S`` the rows of one group's window matrix do not overlap, so the view is an
 ordinary matrix with leading dimension S and BLAS reads it in place: no window is ever copied.
 Larger K makes S wide enough for that; smaller g wastes fewer multiplications on the zeros
 at the group's corners (width is about T + g*M/L for T useful taps) but makes thinner
-products. :func:`bank_layout` picks K and g with a cost model (fixed numbers, so the choice,
-and with it every output bit, is the same on every run; a timed calibration would not be).
+products, and thin products run far below the kernel's peak (more so in float32, whose
+kernel is twice as wide). :func:`bank_layout` picks K and g per arithmetic with a cost
+model (fixed numbers, so the choice, and with it every output bit, is the same on every
+run; a timed calibration would not be).
+
+Tiles
+-----
+Rows are computed ``tile_rows`` at a time, every call of one fixed shape. A BLAS product's
+rounding depends on the call's shape and on where a row sits in it, so fixed tiles aligned
+to multiples of ``tile_rows`` give every output the same summation order whatever the
+blocks the input arrives in.
 """
 
 import functools
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
 __all__ = ["Stack", "Layout", "bank_layout"]
 
-# Relative throughput of a BLAS product with g output columns (measured once with OpenBLAS
-# sgemm/dgemm on a 2-core x86-64 machine; thin products run below the kernel's peak).
-_EFFICIENCY = {4: 0.3, 8: 0.55, 12: 0.7, 16: 0.85, 24: 0.95, 32: 1.0, 48: 1.0, 64: 1.0}
-_CALL_COST = 250_000       # one product call, in multiply-adds (numpy + BLAS dispatch)
-_NOMINAL_FRAMES = 65536    # input frames per process() call assumed by the cost model
-_COPY_COST = 1.5           # copying one window element, in multiply-adds
+# Relative throughput of a BLAS product with g output columns, per arithmetic: OpenBLAS
+# sgemm/dgemm on an x86-64 core (AVX2 kernels), 256 rows of 110-400 strided inputs, one
+# thread, median over the widths. float32 runs best at multiples of 16 columns.
+_EFFICIENCY = {
+    "float32": {4: 0.29, 8: 0.57, 12: 0.55, 16: 0.80, 20: 0.72, 24: 0.87, 28: 0.80, 32: 0.91,
+                40: 0.93, 48: 0.95, 56: 0.97, 64: 0.97, 80: 0.98, 96: 0.99, 112: 1.0, 128: 1.0},
+    "float64": {4: 0.38, 8: 0.57, 12: 0.66, 16: 0.73, 20: 0.78, 24: 0.82, 28: 0.85, 32: 0.87,
+                40: 0.89, 48: 0.92, 56: 0.94, 64: 0.95, 80: 0.97, 96: 0.98, 112: 1.0, 128: 1.0},
+}
+# One product call (numpy + BLAS dispatch, about 4 us), in multiply-adds at the kernel's peak
+_CALL_COST = {"float32": 200_000, "float64": 100_000}
 _MAX_COEFFS = 1 << 21      # coefficient elements allowed for the whole bank (8 MB in float32)
+# Rows per product call: BLAS splits a call of a few hundred rows over two threads at nearly
+# twice the speed of one, and thinner calls lose their dispatch cost; a tile's input frames
+# are capped so that routes with very long rows keep a small frame.
+_TILE_ROWS = 384
+_TILE_FRAMES = 1 << 18
+_MIN_TILE_ROWS = 32
 
 
 @dataclass(frozen=True, eq=False)
@@ -58,6 +79,9 @@ class Layout:
     hi: int          # one past the last input a row reads, relative to q*S
     copy: bool       # windows overlap (width > S): copied before the product
     macs_per_output: float
+    tile_rows: int   # rows per product call (per channel), a fixed shape for every call
+    span: int        # input frames one tile reads
+    advance: int     # input frames from one tile to the next (tile_rows * S)
 
 
 def _residues(up, down, delay, rows_out):
@@ -66,14 +90,12 @@ def _residues(up, down, delay, rows_out):
 
 
 def _group_sizes(rows_out, size):
-    """Split rows_out columns into groups of nearly ``size``: [(column, groups, size), ...]."""
-    count = -(-rows_out // size)
-    small, extra = divmod(rows_out, count)
-    parts = []
-    if extra:
-        parts.append((0, extra, small + 1))
-    if count - extra:
-        parts.append((extra * (small + 1), count - extra, small))
+    """Split rows_out columns into groups of ``size`` and one smaller group for the rest:
+    [(column, groups, size), ...] (BLAS kernels run best on whole multiples of their width)."""
+    full, rest = divmod(rows_out, size)
+    parts = [(0, full, size)] if full else []
+    if rest:
+        parts.append((full * size, 1, rest))
     return parts
 
 
@@ -87,39 +109,50 @@ def _stack_geometry(off, taps, up, down, column, groups, size):
     return step, base, width
 
 
-def _cost(up, down, taps, delay, blocks, size):
-    """Multiply-add equivalents per output of a layout, or None if its bank is too large."""
+def _efficiency(dtype, size):
+    table = _EFFICIENCY[dtype]
+    return table[max((s for s in table if s <= size), default=min(table))] * min(1, size / 4)
+
+
+def _cost(up, down, taps, delay, blocks, size, dtype):
+    """(copies windows, multiply-add equivalents per output) of a layout, or None if its bank
+    is too large."""
     rows_out, stride = blocks * up, blocks * down
     off, _ = _residues(up, down, delay, rows_out)
-    work, copying, calls, widest = 0.0, 0.0, 0, 0
+    work, calls, widest = 0.0, 0, 0
     for column, groups, g in _group_sizes(rows_out, size):
         _, _, width = _stack_geometry(off, taps, up, down, column, groups, g)
-        eff = _EFFICIENCY[max(s for s in _EFFICIENCY if s <= g)] if g >= 4 else 0.2
-        work += groups * g * width / eff
-        copying += groups * width * _COPY_COST
+        work += groups * g * width / _efficiency(dtype, g)
         calls += groups
         widest = max(widest, width)
     if rows_out * widest > _MAX_COEFFS:
         return None
-    if widest > stride:       # overlapping windows must be copied for BLAS
-        work += copying
-    rows = max(1.0, _NOMINAL_FRAMES / stride)
-    return work / rows_out + calls * _CALL_COST / (rows * rows_out)
+    tile = _tile_rows(stride)
+    return widest > stride, (work + calls * _CALL_COST[dtype] / tile) / rows_out
 
 
-def _choose(up, down, taps, delay):
+def _tile_rows(stride):
+    return max(_MIN_TILE_ROWS, min(_TILE_ROWS, _TILE_FRAMES // stride))
+
+
+def _choose(up, down, taps, delay, dtype):
+    """(K, g) of the cheapest layout; one that copies windows only when no other fits."""
     best = None
-    for size in sorted(_EFFICIENCY):
-        # the smallest K whose windows do not overlap, and a few above it (even splits)
+    for size in sorted(_EFFICIENCY[dtype]):
+        # the smallest K whose windows do not overlap, a few above it, and the first K from
+        # there whose row is a whole number of groups
         need = taps - 1 + -(-size * down // up) + 2
         k0 = max(1, -(-need // down))
-        options = [1] + list(range(k0, k0 + 4))
-        for blocks in options:
-            if size > 2 * blocks * up and blocks > 1:
+        unit = size // math.gcd(size, up)
+        options = {1, k0, k0 + 1, k0 + 2, k0 + 3, -(-k0 // unit) * unit}
+        for blocks in sorted(options):
+            if blocks * up < size or blocks > 2 * k0 + 8:     # too thin, or a needlessly long row
                 continue
-            c = _cost(up, down, taps, delay, blocks, size)
+            c = _cost(up, down, taps, delay, blocks, size, dtype)
             if c is not None and (best is None or c < best[0]):
                 best = (c, blocks, size)
+    if best is None:        # every layout is over the budget: the thinnest row
+        return 1, min(up, min(_EFFICIENCY[dtype]))
     return best[1], best[2]
 
 
@@ -138,7 +171,7 @@ def _build(h, up, down, delay, dtype):
     taps = -(-h.size // up)
     hp = np.zeros(taps * up)
     hp[:h.size] = h
-    blocks, size = _choose(up, down, taps, delay)
+    blocks, size = _choose(up, down, taps, delay, dtype.name)
     rows_out, stride = blocks * up, blocks * down
     off, b = _residues(up, down, delay, rows_out)
     j = np.arange(taps)
@@ -156,4 +189,7 @@ def _build(h, up, down, delay, dtype):
     lo = min(s.base for s in stacks)
     hi = max(s.base + (s.groups - 1) * s.step + s.width for s in stacks)
     copy = max(s.width for s in stacks) > stride
-    return Layout(blocks, rows_out, stride, tuple(stacks), lo, hi, copy, macs / rows_out)
+    tile = _tile_rows(stride)
+    span = (tile - 1) * stride + hi - lo
+    return Layout(blocks, rows_out, stride, tuple(stacks), lo, hi, copy, macs / rows_out,
+                  tile, span, tile * stride)

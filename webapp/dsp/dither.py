@@ -232,7 +232,9 @@ class Quantizer:
                 "block")
         if not np.issubdtype(frames.dtype, np.floating):
             raise ParameterError(f"block must hold floating-point samples, got dtype {x.dtype}", "block")
-        if not np.all(np.isfinite(frames)):
+        # min and max are NaN when any sample is, infinite when any is: two reductions
+        # instead of a boolean array as large as the block
+        if frames.size and not (np.isfinite(frames.min()) and np.isfinite(frames.max())):
             raise ParameterError("block samples must be finite, got NaN or infinity", "block")
         if self.bits in _FLOAT_FORMATS:
             out = frames.astype(_FLOAT_FORMATS[self.bits], copy=True)
@@ -242,24 +244,29 @@ class Quantizer:
 
     def _quantize(self, frames):
         word, shift, container = _INTEGER_FORMATS[self.bits]
-        scaled = frames.astype(np.float64) * float(1 << (word - 1))
+        scaled = np.multiply(frames, float(1 << (word - 1)), dtype=np.float64)
         low, high = -(1 << (word - 1)), (1 << (word - 1)) - 1
         if self.dither == "none":
             codes = np.rint(scaled)
         else:
             pairs = self._rng.random((frames.shape[0], self.channels, 2))
-            tpdf = pairs[..., 0] + pairs[..., 1] - 1.0
             if self.dither == "tpdf":
-                codes = np.rint(scaled + tpdf)
+                # scaled + ((u1 + u2) - 1), in place: the same sums as the plain expression
+                codes = np.add(pairs[..., 0], pairs[..., 1])
+                codes -= 1.0
+                codes += scaled
+                np.rint(codes, out=codes)
             else:
+                tpdf = pairs[..., 0] + pairs[..., 1] - 1.0
                 codes = np.empty_like(scaled)
                 for c in range(self.channels):
                     codes[:, c], clipped = _shape_channel(scaled[:, c], tpdf[:, c], self._errors[c],
                                                           self._feedback, low, high)
                     self.clipped_samples += clipped
                 return (codes.astype(container) << shift) if shift else codes.astype(container)
-        self.clipped_samples += int(np.count_nonzero(codes < low) + np.count_nonzero(codes > high))
-        np.clip(codes, low, high, out=codes)
+        if codes.size and (codes.min() < low or codes.max() > high):
+            self.clipped_samples += int(np.count_nonzero(codes < low) + np.count_nonzero(codes > high))
+            np.clip(codes, low, high, out=codes)
         codes = codes.astype(container)
         return (codes << shift) if shift else codes
 

@@ -337,7 +337,7 @@ class LoudnessMeter:
         self.channels = _validate_channels(channels)
         self.weights = _validate_weights(weights, self.channels)
         self._sos = k_weighting(self.rate_hz)
-        self._zi = np.zeros((self._sos.shape[0], 2, self.channels))
+        self._zi = np.zeros((self._sos.shape[0], self.channels, 2))
         self._used = np.flatnonzero(self.weights > 0)
         self._frames = 0
         self._pending = np.zeros(0)      # weighted squares of the unfinished 100 ms step
@@ -347,16 +347,29 @@ class LoudnessMeter:
         """First frame of 100 ms step ``k`` (integer arithmetic: no drift over hours)."""
         return (k * self.rate_hz) // _STEPS_PER_SECOND
 
-    def process(self, block):
-        """Measure one block of frames x channels (float); returns nothing."""
-        x = _as_frames(block, self.channels)
+    def process(self, block, *, checked=False):
+        """Measure one block of frames x channels (float); returns nothing.
+
+        ``checked=True`` skips the shape and finiteness checks: for a caller whose blocks are
+        finite float frames x channels already (:func:`webapp.media.read_blocks` checks what it
+        reads), the checks would be two more passes over every block."""
+        x = block if checked else _as_frames(block, self.channels)
         if x.shape[0] == 0:
             return
-        y, self._zi = signal.sosfilt(self._sos, x.astype(np.float64, copy=False), axis=0, zi=self._zi)
-        # weighted sum of squares per frame, channel by channel in a fixed order
-        power = np.zeros(y.shape[0])
+        # channel-major in and out (axis -1): the filter's own copy is the only one, and the
+        # squares below run over contiguous rows; the state is sections x channels x 2
+        y, self._zi = signal.sosfilt(self._sos, x.T, axis=-1, zi=self._zi)
+        # weighted sum of squares per frame, channel by channel in a fixed order (in place:
+        # w * (y * y), summed from channel 0 up, the same figures as a plain expression)
+        power = None
         for c in self._used:
-            power += self.weights[c] * (y[:, c] * y[:, c])
+            row = y[c]
+            np.multiply(row, row, out=row)
+            row *= self.weights[c]
+            if power is None:
+                power = row
+            else:
+                power += row
         self._frames += x.shape[0]
         k0 = len(self._steps)
         # steps k0 .. k1 - 1 are now complete; data starts at the first frame of step k0
@@ -367,7 +380,7 @@ class LoudnessMeter:
             self._steps.frombytes(np.add.reduceat(data[:edges[-1]], edges[:-1]).tobytes())
             self._pending = data[edges[-1]:].copy()
         else:
-            self._pending = data
+            self._pending = data.copy()
 
     def short_term_lufs(self):
         """Short-term (3 s) loudness of every window so far, hop 100 ms (EBU Tech 3341):
@@ -554,9 +567,12 @@ class TruePeakMeter:
         self._true = np.zeros(self.channels)
         self._sample = np.zeros(self.channels)
 
-    def process(self, block):
-        """Measure one block of frames x channels (float); returns nothing."""
-        x = _as_frames(block, self.channels)
+    def process(self, block, *, checked=False):
+        """Measure one block of frames x channels (float); returns nothing.
+
+        ``checked=True`` skips the shape and finiteness checks (see
+        :meth:`LoudnessMeter.process`)."""
+        x = block if checked else _as_frames(block, self.channels)
         if x.shape[0] == 0:
             return
         self._sample = np.maximum(self._sample, channel_peaks(x))

@@ -4,7 +4,9 @@ Conventions
 -----------
 * Data is frames x channels; every converter is stateful: ``process(block)`` returns the output
   frames that are complete so far, ``flush()`` returns the rest. Any split of the input into
-  blocks gives the same output (to rounding).
+  blocks gives the same output; the exact converter holds that to the last bit (its products
+  run in tiles of one fixed shape, see bank.py), so a recipe re-run with another block size
+  writes the same bytes.
 * Alignment: a linear-phase converter removes its own delay, so output frame n sits at time
   n / fs_out of the input; a minimum-phase one keeps its (small, reported) delay. The output
   of a whole signal of ``frames`` frames has ``ceil(frames * up / down)`` frames.
@@ -15,7 +17,7 @@ output n = qL + r, with p = rM + D = a_r L + b_r, is
     y[qL + r] = sum_{j<T} h[jL + b_r] x[qM + a_r - j].
 A row of K*L outputs (K blocks) is split into groups of neighbouring residues; each group is one
 dense product of a strided view of the input (read in place by BLAS, see bank.py) with a small
-coefficient matrix. Channels are laid end to end so they stack as more rows of one product.
+coefficient matrix, a tile of rows per product call.
 """
 
 from fractions import Fraction
@@ -31,7 +33,6 @@ from .errors import ParameterError
 __all__ = ["PolyphaseConverter", "ArbitraryConverter", "CascadeConverter", "make_converter",
            "convert", "output_length", "real_ratio"]
 
-_CHUNK_FRAMES = 1 << 17   # input frames per product in the exact converter
 _MAX_DENOMINATOR = 1 << 40  # arbitrary path: position denominator, keeps block offsets in int64
 _COEF_ELEMENTS = 1 << 18    # arbitrary path: interpolated coefficients per chunk (outputs x width)
 _MIN_STRETCH = 64           # arbitrary path: read windows in place when stretches are this long
@@ -42,6 +43,12 @@ def output_length(frames, up, down):
     return -(-int(frames) * int(up) // int(down))
 
 
+def _channel_count(channels):
+    if channels < 1:
+        raise ParameterError(f"channels must be at least 1, got {channels}", "channels")
+    return int(channels)
+
+
 def _as_block(block, channels, dtype):
     x = np.asarray(block)
     if x.ndim == 1:
@@ -49,7 +56,7 @@ def _as_block(block, channels, dtype):
     if x.ndim != 2 or x.shape[1] != channels:
         raise ParameterError(f"blocks must be frames x {channels} channels, got shape {x.shape}",
                              "block")
-    return x.astype(dtype, copy=False)
+    return x if dtype is None else x.astype(dtype, copy=False)
 
 
 class _Output:
@@ -72,9 +79,7 @@ class _Streaming(_Output):
     """Shared buffer handling: channel-major input buffer with an absolute start index."""
 
     def _init_stream(self, channels, dtype, pre):
-        if channels < 1:
-            raise ParameterError(f"channels must be at least 1, got {channels}", "channels")
-        self.channels = int(channels)
+        self.channels = _channel_count(channels)
         self.dtype = np.dtype(dtype)
         self._pre = int(pre)
         self.reset()
@@ -109,7 +114,7 @@ class _Streaming(_Output):
         return self._emit(out, total)
 
 
-class PolyphaseConverter(_Streaming):
+class PolyphaseConverter(_Output):
     """Exact rational L/M converter by grouped polyphase matrix products.
 
     Parameters
@@ -128,6 +133,14 @@ class PolyphaseConverter(_Streaming):
     The products run on strided views of the input, laid out by
     :func:`~webapp.dsp.bank.bank_layout`; products in float32 accumulate in float32 (about
     -125 dB relative error, measured), so masks beyond about 120 dB want float64.
+
+    Outputs are made a *tile* at a time: a fixed number of rows starting at a multiple of
+    that number, each channel a product of one fixed shape. A BLAS product's rounding depends
+    on where a row sits in the call and on the call's shape, so fixed tiles make every output
+    bit the same for any split of the input into blocks (at a given number of BLAS threads:
+    OpenBLAS's float32 kernels round differently when a call is shared between threads; the
+    file pipeline always holds one). Input waits in the tile's frame until the tile is
+    complete, at most one tile of latency; ``flush`` pads the end with zeros.
     """
 
     def __init__(self, taps, up, down, *, channels=1, dtype="float64", delay=None):
@@ -136,88 +149,88 @@ class PolyphaseConverter(_Streaming):
         if self.up < 1 or self.down < 1 or math.gcd(self.up, self.down) != 1:
             raise ParameterError(f"up/down must be coprime positive integers, got {up}/{down}",
                                  "up")
+        self.channels = _channel_count(channels)
+        self.dtype = np.dtype(dtype)
         self.numtaps = h.size
         self.delay = (h.size - 1) // 2 if delay is None else int(delay)
         self.taps_per_phase = -(-h.size // self.up)
-        self._layout = bank_layout(h, self.up, self.down, self.delay, dtype)
-        self._rows = self._layout.rows_out
-        self._stride = self._layout.stride
-        self._lo, self._hi = self._layout.lo, self._layout.hi
-        self._scratch = None
-        self._init_stream(channels, dtype, max(0, -self._lo))
+        self._layout = bank_layout(h, self.up, self.down, self.delay, self.dtype)
+        self._frame = np.zeros((self.channels, self._layout.span), dtype=self.dtype)
+        self.reset()
 
-    def _reset_position(self):
-        self._q = 0
+    def reset(self):
+        lay = self._layout
+        self._fill = max(0, -lay.lo)    # frame position 0 is input frame q0*S + lo
+        self._skip = max(0, lay.lo)     # input frames no window reads
+        self._frame[:, :self._fill] = 0
+        self.frames_in = 0
+        self.frames_out = 0
+        self._flushed = False
 
-    def _blocks_ready(self):
-        end = self._buf_start + self._buf.shape[1]
-        # row q is ready when q*stride + hi <= end
-        avail = (end - self._hi) // self._stride + 1
-        return max(0, avail - self._q)
+    def _tile(self, dst):
+        """Rows of one tile: every channel's windows in the frame times every stack, into
+        ``dst`` (channels x rows x R); then keep the inputs the next tile shares."""
+        lay, frame = self._layout, self._frame
+        item = frame.itemsize
+        C, n, R = self.channels, dst.shape[1], lay.rows_out
+        for st in lay.stacks:
+            win = as_strided(frame[:, st.base - lay.lo:], shape=(C, st.groups, n, st.width),
+                             strides=(frame.strides[0], st.step * item, lay.stride * item, item),
+                             writeable=False)
+            if lay.copy:        # overlapping windows: BLAS needs them copied
+                win = np.ascontiguousarray(win)
+            view = as_strided(dst[:, :, st.column:], shape=(C, st.groups, n, st.size),
+                              strides=(dst.strides[0], st.size * item, R * item, item))
+            np.matmul(win, st.mats, out=view)
+        keep = lay.span - lay.advance
+        frame[:, :keep] = frame[:, lay.advance:lay.span]
+        self._fill = keep
 
-    def _frame(self, nq):
-        """The inputs of rows q .. q+nq-1, channels end to end with a stride of P*S frames.
-
-        Row i of the flat array then starts at i*S for every channel (channel c's row q is
-        i = c*P + q), so one product covers all channels; the few rows between channels read
-        across the boundary and are dropped.
-        """
-        lay, S = self._layout, self._stride
-        first = self._q * S - self._buf_start + lay.lo
-        need = (nq - 1) * S + lay.hi - lay.lo
-        if self.channels == 1:
-            return self._buf[0, first:first + need], nq
-        P = nq + -(-(lay.hi - lay.lo) // S)
-        if self._scratch is None or self._scratch.size < self.channels * P * S:
-            self._scratch = np.empty(self.channels * P * S, dtype=self.dtype)
-        frame = self._scratch[:self.channels * P * S].reshape(self.channels, P * S)
-        frame[:, :need] = self._buf[:, first:first + need]
-        frame[:, need:] = 0
-        return frame.reshape(-1), P
-
-    def _run(self, nq):
-        C, R, S, lay = self.channels, self._rows, self._stride, self._layout
-        flat, P = self._frame(nq)
-        item = flat.itemsize
-        out = np.empty((C, P, R), dtype=self.dtype)
-        rows = (C - 1) * P + nq
-        step = max(1, _CHUNK_FRAMES // S)   # rows per product: inputs stay in cache
-        for i0 in range(0, rows, step):
-            n = min(step, rows - i0)
-            for st in lay.stacks:
-                start = i0 * S + st.base - lay.lo
-                win = as_strided(flat[start:], shape=(st.groups, n, st.width),
-                                 strides=(st.step * item, S * item, item), writeable=False)
-                if lay.copy:        # overlapping windows: BLAS needs them copied
-                    win = np.ascontiguousarray(win)
-                dst = as_strided(out.reshape(C * P, R)[i0:, st.column:],
-                                 shape=(st.groups, n, st.size),
-                                 strides=(st.size * item, R * item, item))
-                np.matmul(win, st.mats, out=dst)
-        self._q += nq
-        return out[:, :nq].reshape(C, nq * R).T
+    def _outputs(self, rows):
+        """An output array of ``rows`` rows, channel-major so each channel is one run."""
+        return np.empty((self.channels, rows, self._layout.rows_out), dtype=self.dtype)
 
     def process(self, block):
-        """Feed a frames x channels block; return the output frames now complete."""
-        x = _as_block(block, self.channels, self.dtype)
-        self._append(x)
-        nq = self._blocks_ready()
-        if nq == 0:
-            return np.empty((0, self.channels), dtype=self.dtype)
-        y = self._run(nq)
-        self._drop_before(self._q * self._stride + self._lo)
-        return self._emit(y)
+        """Feed a frames x channels block; return the output frames of the tiles now complete."""
+        if self._flushed:
+            raise ParameterError("the converter was flushed; call reset() before reuse", "block")
+        x = _as_block(block, self.channels, None)
+        self.frames_in += x.shape[0]
+        if self._skip:
+            drop = min(self._skip, x.shape[0])
+            x, self._skip = x[drop:], self._skip - drop
+        lay, frame, n = self._layout, self._frame, self._layout.tile_rows
+        tiles = max(0, (self._fill + x.shape[0] - lay.span) // lay.advance + 1)
+        out = self._outputs(tiles * n)
+        i = 0
+        for t in range(tiles):
+            take = lay.span - self._fill
+            frame[:, self._fill:lay.span] = x[i:i + take].T
+            i += take
+            self._tile(out[:, t * n:(t + 1) * n])
+        rest = x.shape[0] - i
+        frame[:, self._fill:self._fill + rest] = x[i:].T
+        self._fill += rest
+        return self._emit(out.reshape(self.channels, -1).T)
 
-    def _finish(self, need):
-        if need <= 0:
-            return np.empty((0, self.channels), dtype=self.dtype)
-        nq = -(-need // self._rows)
-        end_needed = (self._q + nq - 1) * self._stride + self._hi
-        end = self._buf_start + self._buf.shape[1]
-        if end_needed > end:
-            pad = np.zeros((self.channels, end_needed - end), dtype=self.dtype)
-            self._buf = np.concatenate([self._buf, pad], axis=1)
-        return self._run(nq)[:need]
+    def flush(self):
+        """Return the remaining output frames; the total is ceil(frames_in * up / down).
+
+        The rows still to come are computed in whole tiles and one last product of just the
+        rows needed: how many there are depends on the signal's length alone, never on how it
+        was split into blocks, so the summation order stays fixed and no tile is wasted.
+        """
+        if self._flushed:
+            raise ParameterError("the converter was flushed; call reset() before reuse", "block")
+        lay = self._layout
+        total = output_length(self.frames_in, self.up, self.down)
+        rows = max(0, -(-(total - self.frames_out) // lay.rows_out))
+        out = self._outputs(rows)
+        for r0 in range(0, rows, lay.tile_rows):
+            self._frame[:, self._fill:lay.span] = 0     # the signal is silent after its end
+            self._tile(out[:, r0:r0 + lay.tile_rows])
+        self._flushed = True
+        return self._emit(out.reshape(self.channels, -1).T, total)
 
 
 class ArbitraryConverter(_Streaming):

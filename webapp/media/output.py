@@ -6,7 +6,7 @@ from dataclasses import dataclass
 import numpy as np
 import soundfile as sf
 
-from webapp import __version__, partials, riffchunks
+from webapp import __version__, partials, riff, riffchunks
 from webapp.dsp.dither import (
     WORD_LENGTHS,  # word lengths an output may carry (one list)
 )
@@ -452,6 +452,7 @@ class AtomicWriter:
         try:
             self._sf.close()
             self._sf = None
+            riff.clear_peak_time(self._partial.path)    # the same samples, the same bytes
             os.fsync(self._fd)
             os.close(self._fd)
             self._fd = self._partial.fd = None
