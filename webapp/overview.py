@@ -21,6 +21,7 @@ Conventions
   count and the time of the first one.
 """
 
+import functools
 import time
 
 import numpy as np
@@ -185,8 +186,9 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
             workers = [stages.add(lambda block, part=part: found.append(part.process(block)),
                                   f"rateferry-overview-overs-{i}")
                        for i, part in enumerate(scans.parts)]
-            if meter.loud is not None:
-                workers.append(stages.add(meter.loud.process, "rateferry-overview-loudness"))
+            if meter.loud is not None:     # read_blocks checked every sample already
+                workers.append(stages.add(functools.partial(meter.loud.process, checked=True),
+                                          "rateferry-overview-loudness"))
             for block in prefetch(media.read_blocks(path, blocksize=_BLOCK_FRAMES)):
                 for worker in workers:
                     worker.submit(block)
