@@ -21,8 +21,9 @@ SQLite, real files through soundfile; the server's threads in this process):
 one read (the upload without ``columns``: its meters read the file, then the overview reads it
 again), for a before/after in one run. ``--parts`` (default for files up to 10 minutes) times
 the parts of the one read alone, one after the other on one thread: reading the file, the
-loudness meter, the true-peak scan (16x interpolation for the true peak and the overs), the
-overview's columns; and beside them the two separate reads of before. ``--page`` also loads the
+meters (BS.1770 loudness and true peak, as measure_file), the overview's columns, the search
+for overs (only where a sample is loud enough, read again; none when the true peak stays under
+0 dBTP); and beside them the two separate reads of before. ``--page`` also loads the
 file in the real page (Debian's chromium through Playwright, the real server on a loopback
 port): from choosing the file to its figures, its overview and its spectra drawn.
 
@@ -45,10 +46,8 @@ from threadpoolctl import threadpool_limits
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 from webapp import media  # noqa: E402
-from webapp.dsp.loudness import LoudnessMeter  # noqa: E402
-from webapp.dsp.overs import TruePeakScan  # noqa: E402
 from webapp.overview import overview  # noqa: E402
-from webapp.pipeline import measure_file  # noqa: E402
+from webapp.pipeline import Meters, measure_file  # noqa: E402
 
 RATE_HZ = 44100
 #: The page's overview width in the benchmark (the page sends its plot's width in pixels).
@@ -185,31 +184,28 @@ def parts(path):
     # kept in memory, so the meters below time their own work only
     blocks = list(media.read_blocks(path, blocksize=_BLOCK))
 
-    def loudness():
-        meter = LoudnessMeter(rate_hz=info.rate_hz, channels=info.channels)
+    def meters():
+        meter = Meters(info.rate_hz, info.channels)
         for b in blocks:
-            meter.process(b)
-        return meter.short_term_lufs()
-
-    def scan():
-        finder = TruePeakScan(rate_hz=info.rate_hz, channels=info.channels)
-        for b in blocks:
-            finder.process(b)
-        finder.finish()
-        return finder.result()
+            meter.process(b, checked=True)
+        return meter.result()
 
     def columns():
         from webapp.overview import _Columns
         grid = _Columns(COLUMNS, info.frames)
         for b in blocks:
             grid.add(b)
+        return grid
 
     with threadpool_limits(limits=1, user_api="blas"):
-        for name, fn in (("loudness", loudness), ("true_peak_scan", scan),
-                         ("columns", columns)):
-            _, w, c = timed(fn)
-            out[name] = dict(wall_s=w, cpu_s=c)
+        _, w, c = timed(meters)
+        out["meters"] = dict(wall_s=w, cpu_s=c)
+        grid, w, c = timed(columns)
+        out["columns"] = dict(wall_s=w, cpu_s=c)
         blocks.clear()
+        from webapp.overview import _overs
+        found, w, c = timed(lambda: _overs(path, info, grid.stretch_peaks(), 0.0))
+        out["overs"] = dict(wall_s=w, cpu_s=c, frames=int(found.size))
         _, w, c = timed(lambda: measure_file(path, info.rate_hz, info.channels))
         out["before_meters"] = dict(wall_s=w, cpu_s=c)
     _, w, c = timed(lambda: overview(path, columns=COLUMNS, probe=info))
@@ -344,9 +340,9 @@ def main(argv=None):
         rows += _sequence_rows("before (two reads)", before, ref, target)
     if alone is not None:
         for key, label in (("probe", "probe"), ("read", "read the file (soundfile)"),
-                           ("loudness", "loudness meter (BS.1770, short-term curve)"),
-                           ("true_peak_scan", "true-peak scan (16x: true peak + overs)"),
+                           ("meters", "meters (loudness, true peak)"),
                            ("columns", "overview columns (min, max, full scale)"),
+                           ("overs", "overs, where samples are loud (read again)"),
                            ("before_meters", "before: meters alone (measure_file)"),
                            ("before_overview", "before: overview alone (its own read)")):
             rows.append(dict(name=f"  alone, CPU: {label}", value=alone[key]["cpu_s"],

@@ -4,11 +4,12 @@ from the same read, the recording's meters.
 
 One streaming pass in blocks (:func:`webapp.media.read_blocks`): memory stays flat whatever the
 duration (the loudness meter keeps one number per 100 ms: 36 000 an hour). The meters are the
-core's, as the conversion pipeline runs them (:class:`webapp.pipeline.Meters`): one
-:class:`webapp.dsp.loudness.LoudnessMeter` (BS.1770-4 integrated loudness and loudness range, and
-the EBU Tech 3341 short-term curve), one 16x scan per group of channels,
-:class:`webapp.dsp.overs.TruePeakScan` (the true peak and the overs in one pass of the true-peak
-meter's interpolator). The reader, the loudness meter and the scans run on their own threads.
+conversion pipeline's (:class:`webapp.pipeline.Meters`: BS.1770-4 loudness, whose meter also
+gives the EBU Tech 3341 short-term curve, and the true-peak meter), on a thread of their own
+beside the reader. The overs need the true-peak envelope frame by frame
+(:class:`webapp.dsp.overs.TruePeakOvers`), several times the meter's cost: they are looked for
+only when the meter reads over the threshold, and then only in the stretches where a sample is
+loud enough to take the true peak there (:func:`webapp.dsp.overs.over_floor`), read again.
 
 Conventions
 -----------
@@ -30,8 +31,9 @@ from threadpoolctl import threadpool_limits
 from webapp import media
 from webapp.threads import Stages, prefetch
 from webapp.dsp.errors import ParameterError
-from webapp.dsp.overs import FULL_SCALE, TruePeakScan, full_scale_frames, joined_result
-from webapp.pipeline import Meters
+from webapp.dsp.overs import FULL_SCALE, REACH_FRAMES, TruePeakOvers, full_scale_frames, \
+    over_floor
+from webapp.pipeline import BLOCK_FRAMES, Meters
 
 __all__ = ["overview", "overview_and_meters", "DEFAULT_COLUMNS", "MAX_COLUMNS",
            "OVER_THRESHOLD_DBTP"]
@@ -40,7 +42,8 @@ DEFAULT_COLUMNS = 1200
 MAX_COLUMNS = 4000
 #: True-peak overs are reported above this level: 0 dBTP, over full scale once reconstructed.
 OVER_THRESHOLD_DBTP = 0.0
-_BLOCK_FRAMES = 1 << 17
+#: The stretch whose loudest sample says whether the overs are looked for in it.
+STRETCH_FRAMES = 8192
 
 
 def _columns(value, frames):
@@ -74,7 +77,8 @@ class _Markers:
 
 
 class _Columns:
-    """The overview's per-column figures, fed the blocks in order (min, max, full scale)."""
+    """The overview's per-column figures, fed the blocks in order (min, max, full scale), and
+    the loudest sample of every stretch of :data:`STRETCH_FRAMES` frames."""
 
     def __init__(self, columns, frames):
         self.n = columns
@@ -86,20 +90,21 @@ class _Columns:
         self.clipped = _Markers(columns)
         self.overs = _Markers(columns)
         self.pos = 0
+        self._stretches = []
 
     def column_of(self, frames):
         return np.searchsorted(self.edges, frames, side="right") - 1
 
     def add(self, block):
-        m = block.shape[0]
+        m, channels = block.shape
         if m == 0:
             return
+        # a column's (a stretch's) frames are one run of the interleaved samples, so one
+        # reduction gives its extreme over all channels
+        flat = np.ascontiguousarray(block).reshape(-1)
         first, last = self.column_of([self.pos, self.pos + m - 1])
         cols = np.arange(first, last + 1)
-        # where each column touched by the block starts inside it; a column's frames are one
-        # stretch of the interleaved samples, so one reduction gives its extreme over channels
-        starts = np.maximum(self.edges[cols] - self.pos, 0) * block.shape[1]
-        flat = np.ascontiguousarray(block).reshape(-1)
+        starts = np.maximum(self.edges[cols] - self.pos, 0) * channels
         lo = np.minimum.reduceat(flat, starts)
         hi = np.maximum.reduceat(flat, starts)
         if hi.max() >= FULL_SCALE or -lo.min() >= FULL_SCALE:   # else no frame is clipped
@@ -107,7 +112,19 @@ class _Columns:
             self.clipped.add(at_fs, self.column_of(at_fs))
         self.low[cols] = np.minimum(self.low[cols], lo)
         self.high[cols] = np.maximum(self.high[cols], hi)
+        k = np.arange(self.pos // STRETCH_FRAMES, (self.pos + m - 1) // STRETCH_FRAMES + 1)
+        at = np.maximum(k * STRETCH_FRAMES - self.pos, 0) * channels
+        peaks = np.maximum(np.maximum.reduceat(flat, at), -np.minimum.reduceat(flat, at))
+        if self.pos % STRETCH_FRAMES:            # the first stretch began in the last block
+            self._stretches[-1][-1] = max(self._stretches[-1][-1], peaks[0])
+            peaks = peaks[1:]
+        self._stretches.append(peaks)
         self.pos += m
+
+    def stretch_peaks(self):
+        """The loudest |sample| of every stretch of STRETCH_FRAMES frames (the last may be
+        shorter), over all channels."""
+        return np.concatenate(self._stretches) if self._stretches else np.zeros(0)
 
     def add_overs(self, frames):
         self.overs.add(frames, self.column_of(frames))
@@ -152,11 +169,13 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
                         over_threshold_dbtp=OVER_THRESHOLD_DBTP, probe=None):
     """The overview and the recording's meters from one read of the file.
 
-    The meters are those of :func:`webapp.pipeline.measure_file` (the pipeline's
-    :class:`~webapp.pipeline.Meters`): the loudness from the one BS.1770 meter that also gives
-    the short-term curve, the true peak from the 16x scan that also finds the overs
-    (:class:`webapp.dsp.overs.TruePeakScan`; the same reading to the float32 products'
-    rounding, about 1e-6 dB). :func:`overview` is this read without the meters.
+    The meters are :func:`webapp.pipeline.measure_file`'s, the pipeline's
+    :class:`~webapp.pipeline.Meters` fed the same blocks: BS.1770 loudness (whose meter also
+    gives the short-term curve) and the true-peak meter. The overs need the true-peak envelope
+    frame by frame, which costs several times the meter: they are looked for only when the
+    meter reads over the threshold, and then only where a sample is loud enough to take the
+    true peak there (:func:`webapp.dsp.overs.over_floor`), reading those stretches again.
+    :func:`overview` is this read without the meters.
 
     Returns
     -------
@@ -174,62 +193,93 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
     if frames == 0:
         raise ParameterError("the recording has no frames to draw", "recording_id")
     grid = _Columns(_columns(columns, frames), frames)
-    meter = Meters(rate, info.channels)        # the pipeline's figures, their note below 8 kHz
-    scans = _ChannelScans(rate, info.channels, over_threshold_dbtp)
-    meter.peak = scans                         # its true peak from the scans for the overs
-    found = []
-    # the scans (the largest part) and the loudness meter run on their own threads, beside
-    # the reader and the columns; one BLAS thread for the interpolator's small products (more
-    # only fight over the cores)
+    meter = Meters(rate, info.channels)
+    # the meters run on a thread of their own beside the reader and the columns (read_blocks
+    # checks every sample, so they need not); one BLAS thread for the interpolator's small
+    # products (more only fight over the cores)
     with threadpool_limits(limits=1, user_api="blas"):
         with Stages() as stages:
-            workers = [stages.add(lambda block, part=part: found.append(part.process(block)),
-                                  f"rateferry-overview-overs-{i}")
-                       for i, part in enumerate(scans.parts)]
-            if meter.loud is not None:     # read_blocks checked every sample already
-                workers.append(stages.add(functools.partial(meter.loud.process, checked=True),
-                                          "rateferry-overview-loudness"))
-            for block in prefetch(media.read_blocks(path, blocksize=_BLOCK_FRAMES)):
-                for worker in workers:
-                    worker.submit(block)
+            metering = stages.add(functools.partial(meter.process, checked=True),
+                                  "rateferry-overview-meters")
+            for block in prefetch(media.read_blocks(path, blocksize=BLOCK_FRAMES)):
+                metering.submit(block)
                 grid.add(block)
-        found.extend(part.finish() for part in scans.parts)
-    grid.add_overs(np.unique(np.concatenate(found)))
+        meters = meter.result()
+        reading = meters["true_peak_dbtp"]
+        if reading is not None and reading > over_threshold_dbtp:
+            grid.add_overs(_overs(path, info, grid.stretch_peaks(), over_threshold_dbtp))
     figures = dict(
         rate_hz=rate, channels=info.channels, frames=frames, duration_s=frames / rate,
         columns=grid.n, **grid.figures(rate, meter.loud),
         full_scale_level=FULL_SCALE, over_threshold_dbtp=float(over_threshold_dbtp),
         seconds=time.perf_counter() - t0)
-    return figures, meter.result()
+    return figures, meters
 
 
-#: The true-peak scan runs on at most this many threads (the machine's two cores).
-_SCAN_THREADS = 2
+#: The search for overs runs on at most this many threads, each on a group of channels.
+_SEARCH_THREADS = 2
 
 
-class _ChannelScans:
-    """The true-peak scan of a recording in groups of channels, each group fed its own slice
-    of every block (on its own thread); the figures of the whole (``result``)."""
+def _overs(path, info, peaks, threshold_dbtp):
+    """Frames whose true peak goes over ``threshold_dbtp``, searched in the stretches where a
+    sample reaches :func:`over_floor` and :data:`REACH_FRAMES` around them (anywhere else the
+    envelope stays under the threshold), each read again with that much context either side.
+    """
+    loud = np.flatnonzero(peaks >= over_floor(threshold_dbtp))
+    if loud.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    # stretches that can hold an over (a loud one and REACH_FRAMES either side), merged
+    starts = np.maximum(loud * STRETCH_FRAMES - REACH_FRAMES, 0)
+    stops = np.minimum((loud + 1) * STRETCH_FRAMES + REACH_FRAMES, info.frames)
+    joined = np.flatnonzero(starts[1:] > stops[:-1] + 2 * REACH_FRAMES)
+    regions = list(zip(starts[np.r_[0, joined + 1]], stops[np.r_[joined, loud.size - 1]]))
+    edges = np.linspace(0, info.channels, min(info.channels, _SEARCH_THREADS) + 1)
+    edges = edges.round().astype(int)
+    searches = [_RegionSearch(int(a), int(b), threshold_dbtp)
+                for a, b in zip(edges[:-1], edges[1:])]
+    with Stages() as stages:
+        workers = [stages.add(search.take, f"rateferry-overview-overs-{i}")
+                   for i, search in enumerate(searches)]
+        for item in prefetch(_region_blocks(path, regions, info.frames)):
+            for worker in workers:
+                worker.submit(item)
+    return np.unique(np.concatenate([f for search in searches for f in search.found]))
 
-    def __init__(self, rate, channels, threshold_dbtp):
-        edges = np.linspace(0, channels, min(channels, _SCAN_THREADS) + 1).round().astype(int)
-        self.parts = [_Slice(TruePeakScan(rate_hz=rate, channels=int(b - a),
-                                          threshold_dbtp=threshold_dbtp), int(a), int(b))
-                      for a, b in zip(edges[:-1], edges[1:])]
 
-    def result(self):
-        return joined_result([part.scan.result() for part in self.parts])
+def _region_blocks(path, regions, frames):
+    """("start", (first frame read, region)), the blocks, ("end", None), region by region."""
+    for a, b in regions:
+        first, stop = max(0, a - REACH_FRAMES), min(frames, b + REACH_FRAMES)
+        yield "start", (first, a, b)
+        for block in media.read_blocks(path, start=first, frames=stop - first,
+                                       blocksize=BLOCK_FRAMES):
+            yield "block", block
+        yield "end", None
 
 
-class _Slice:
-    def __init__(self, scan, first, stop):
-        self.scan, self.first, self.stop = scan, first, stop
+class _RegionSearch:
+    """The overs of one group of channels (``first`` to ``stop``), region by region: a fresh
+    finder for each, fed the region with its context; the overs inside the region are kept
+    (those at a file's first or last frame include the ringing beyond it, as documented)."""
 
-    def process(self, block):
-        return self.scan.process(block[:, self.first:self.stop])
+    def __init__(self, first, stop, threshold_dbtp):
+        self.first, self.stop, self.threshold_dbtp = first, stop, threshold_dbtp
+        self.found = []
 
-    def finish(self):
-        return self.scan.finish()
+    def take(self, item):
+        kind, value = item
+        if kind == "start":
+            self.offset, self.region = value[0], value[1:]
+            self.finder = TruePeakOvers(channels=self.stop - self.first,
+                                        threshold_dbtp=self.threshold_dbtp)
+            self.parts = []
+        elif kind == "block":
+            self.parts.append(self.finder.process(value[:, self.first:self.stop]))
+        else:
+            self.parts.append(self.finder.finish())
+            frames = np.concatenate(self.parts) + self.offset
+            a, b = self.region
+            self.found.append(frames[(frames >= a) & (frames < b)])
 
 
 def _short_term_columns(loud, edges, rate):
