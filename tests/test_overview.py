@@ -91,10 +91,8 @@ def test_overs_searched_where_samples_are_loud_are_those_of_the_whole_file(tmp_a
 
 
 @pytest.mark.parametrize("channels", [3, 6])
-def test_overs_searched_in_groups_of_channels_are_found_in_the_last_channel(tmp_audio, rng,
-                                                                            channels):
-    # the search for overs runs on two threads, each on its own group of channels; the
-    # loudest channel is the last one, its crest (1.2) between samples
+def test_overs_of_many_channels_are_found_in_the_one_that_goes_over(tmp_audio, rng, channels):
+    # the loudest channel is the last one, its crest (1.2) between samples
     rate = 48000
     x = rng.standard_normal((rate * 4, channels)) * 0.05
     k = np.arange(960)

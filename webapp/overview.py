@@ -216,10 +216,6 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
     return figures, meters
 
 
-#: The search for overs runs on at most this many threads, each on a group of channels.
-_SEARCH_THREADS = 2
-
-
 def _overs(path, info, peaks, threshold_dbtp):
     """Frames whose true peak goes over ``threshold_dbtp``, searched in the stretches where a
     sample reaches :func:`over_floor` and :data:`REACH_FRAMES` around them (anywhere else the
@@ -233,17 +229,14 @@ def _overs(path, info, peaks, threshold_dbtp):
     stops = np.minimum((loud + 1) * STRETCH_FRAMES + REACH_FRAMES, info.frames)
     joined = np.flatnonzero(starts[1:] > stops[:-1] + 2 * REACH_FRAMES)
     regions = list(zip(starts[np.r_[0, joined + 1]], stops[np.r_[joined, loud.size - 1]]))
-    edges = np.linspace(0, info.channels, min(info.channels, _SEARCH_THREADS) + 1)
-    edges = edges.round().astype(int)
-    searches = [_RegionSearch(int(a), int(b), threshold_dbtp)
-                for a, b in zip(edges[:-1], edges[1:])]
+    # the search on a thread of its own, beside the reader (measured: a thread per group of
+    # channels costs more in all than it saves)
+    search = _RegionSearch(info.channels, threshold_dbtp)
     with Stages() as stages:
-        workers = [stages.add(search.take, f"rateferry-overview-overs-{i}")
-                   for i, search in enumerate(searches)]
+        searching = stages.add(search.take, "rateferry-overview-overs")
         for item in prefetch(_region_blocks(path, regions, info.frames)):
-            for worker in workers:
-                worker.submit(item)
-    return np.unique(np.concatenate([f for search in searches for f in search.found]))
+            searching.submit(item)
+    return np.unique(np.concatenate(search.found))
 
 
 def _region_blocks(path, regions, frames):
@@ -258,23 +251,23 @@ def _region_blocks(path, regions, frames):
 
 
 class _RegionSearch:
-    """The overs of one group of channels (``first`` to ``stop``), region by region: a fresh
-    finder for each, fed the region with its context; the overs inside the region are kept
-    (those at a file's first or last frame include the ringing beyond it, as documented)."""
+    """The overs region by region: a fresh finder for each, fed the region with its context;
+    the overs inside the region are kept (those at a file's first or last frame include the
+    ringing beyond it, as documented)."""
 
-    def __init__(self, first, stop, threshold_dbtp):
-        self.first, self.stop, self.threshold_dbtp = first, stop, threshold_dbtp
+    def __init__(self, channels, threshold_dbtp):
+        self.channels, self.threshold_dbtp = channels, threshold_dbtp
         self.found = []
 
     def take(self, item):
         kind, value = item
         if kind == "start":
             self.offset, self.region = value[0], value[1:]
-            self.finder = TruePeakOvers(channels=self.stop - self.first,
+            self.finder = TruePeakOvers(channels=self.channels,
                                         threshold_dbtp=self.threshold_dbtp)
             self.parts = []
         elif kind == "block":
-            self.parts.append(self.finder.process(value[:, self.first:self.stop]))
+            self.parts.append(self.finder.process(value))
         else:
             self.parts.append(self.finder.finish())
             frames = np.concatenate(self.parts) + self.offset
