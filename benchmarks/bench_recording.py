@@ -57,9 +57,9 @@ _BLOCK = 1 << 17
 POLL_S = 0.1
 
 
-def make_source(path, minutes, fmt, seed=7):
+def make_source(path, minutes, fmt, seed=7, gain_db=0.0):
     """Stereo programme-like noise under a slow envelope, written in blocks (24-bit WAV or
-    16-bit FLAC)."""
+    16-bit FLAC); its true peak is about +0.01 dBTP (a few overs), plus ``gain_db``."""
     rng = np.random.default_rng(seed)
     subtype = "PCM_24" if fmt == "wav" else "PCM_16"
     frames = int(minutes * 60 * RATE_HZ)
@@ -69,7 +69,7 @@ def make_source(path, minutes, fmt, seed=7):
             n = min(block, frames - a)
             t = (a + np.arange(n)) / RATE_HZ
             env = (0.2 + np.abs(np.sin(2 * np.pi * 0.37 * t))) ** 3
-            f.write(0.1 * rng.standard_normal((n, 2)) * env[:, None])
+            f.write(0.1 * 10 ** (gain_db / 20) * rng.standard_normal((n, 2)) * env[:, None])
 
 
 def timed(fn):
@@ -198,14 +198,18 @@ def parts(path):
         return grid
 
     with threadpool_limits(limits=1, user_api="blas"):
-        _, w, c = timed(meters)
+        figures, w, c = timed(meters)
         out["meters"] = dict(wall_s=w, cpu_s=c)
         grid, w, c = timed(columns)
         out["columns"] = dict(wall_s=w, cpu_s=c)
         blocks.clear()
         from webapp.overview import _overs
-        found, w, c = timed(lambda: _overs(path, info, grid.stretch_peaks(), 0.0))
-        out["overs"] = dict(wall_s=w, cpu_s=c, frames=int(found.size))
+        # the one read searches only when the true peak reads over 0 dBTP
+        if (figures["true_peak_dbtp"] or -1.0) > 0.0:
+            found, w, c = timed(lambda: _overs(path, info, grid.stretch_peaks(), 0.0))
+            out["overs"] = dict(wall_s=w, cpu_s=c, frames=int(found.size))
+        else:
+            out["overs"] = dict(wall_s=0.0, cpu_s=0.0, frames=0)
         _, w, c = timed(lambda: measure_file(path, info.rate_hz, info.channels))
         out["before_meters"] = dict(wall_s=w, cpu_s=c)
     _, w, c = timed(lambda: overview(path, columns=COLUMNS, probe=info))
@@ -317,6 +321,9 @@ def main(argv=None):
     ap.add_argument("--separate", action=argparse.BooleanOptionalAction, default=None,
                     help="also the sequence of before: meters and overview in two reads "
                          "(default: for files up to 10 minutes)")
+    ap.add_argument("--gain-db", type=float, default=0.0,
+                    help="level of the programme against the default (about +0.01 dBTP, a few "
+                         "overs); e.g. -6 for a programme with none")
     ap.add_argument("--page", action="store_true",
                     help="also load the file in the page (chromium through Playwright)")
     ap.add_argument("--tmp", default=None, help="folder for the temporary file")
@@ -324,7 +331,7 @@ def main(argv=None):
     short = args.minutes <= 10
     with tempfile.TemporaryDirectory(dir=args.tmp) as tmp:
         path = os.path.join(tmp, f"programme.{args.format}")
-        make_source(path, args.minutes, args.format)
+        make_source(path, args.minutes, args.format, gain_db=args.gain_db)
         size_mb = os.path.getsize(path) / 1e6
         _, read_w, read_c = timed(lambda: [None for _ in media.read_blocks(path,
                                                                            blocksize=_BLOCK)])
@@ -342,7 +349,7 @@ def main(argv=None):
         for key, label in (("probe", "probe"), ("read", "read the file (soundfile)"),
                            ("meters", "meters (loudness, true peak)"),
                            ("columns", "overview columns (min, max, full scale)"),
-                           ("overs", "overs, where samples are loud (read again)"),
+                           ("overs", "overs: only over 0 dBTP, where samples are loud"),
                            ("before_meters", "before: meters alone (measure_file)"),
                            ("before_overview", "before: overview alone (its own read)")):
             rows.append(dict(name=f"  alone, CPU: {label}", value=alone[key]["cpu_s"],
@@ -360,7 +367,8 @@ def main(argv=None):
                 rows.append(dict(name=f"  page: {label}", value=page[key], unit="s"))
     title = (f"{args.minutes:g} min stereo {RATE_HZ} Hz "
              f"{'24-bit WAV' if args.format == 'wav' else '16-bit FLAC'} ({size_mb:.1f} MB) "
-             f"loaded in the page, overview {COLUMNS} columns")
+             f"{f'{args.gain_db:+g} dB ' if args.gain_db else ''}loaded in the page, overview "
+             f"{COLUMNS} columns")
     return dict(title=title, figures=rows, sequence=seq, before=before, alone=alone, page=page,
                 load_average=list(os.getloadavg()))
 
