@@ -59,18 +59,29 @@ export function init(root, state) {
     plots.spectra(plot, data, { logX: logX(), response });
   }
 
-  async function load() {
+  // A newly loaded recording's spectra are asked for with the route, beside its first design
+  // (the server designs the filter once for both); later ones name the design.
+  let byRoute = false;
+  async function load({ route = false } = {}) {
     const s = state.get();
     const d = s.design;
     const rec = s.recording;
-    if (!d || !rec || d.fs_in !== rec.rate_hz) return;
+    let body;
+    if (route) {
+      const r = s.route;
+      if (!rec || !r) return;
+      body = { recording_id: rec.id, fs_out: r.fs_out, preset: r.preset, spec: r.spec, log_axis: logX() };
+    } else {
+      if (!d || !rec || d.fs_in !== rec.rate_hz) return;
+      body = { recording_id: rec.id, design_id: d.id, log_axis: logX() };
+    }
     clearErrors(root);
     if (controller) controller.abort();
     controller = new AbortController();
     const mine = ++seq;
+    byRoute = route;
     root.classList.add('busy');
     summary.textContent = 'Analysing…';
-    const body = { recording_id: rec.id, design_id: d.id, log_axis: logX() };
     if (excerptBox.checked) {
       body.start_s = numberOf(start);
       body.length_s = numberOf(length);
@@ -82,13 +93,23 @@ export function init(root, state) {
       state.set({ spectra: sp });
       describe(sp);
       draw();
+      const now = state.get('design');
+      if (route && now && now.id !== sp.design_id) soon();   // the route moved meanwhile
     } catch (err) {
       if (err && err.name === 'AbortError') return;
       if (mine !== seq) return;
+      if (route) {                       // the design will tell what is wrong; try with it
+        byRoute = false;
+        soon();
+        return;
+      }
       summary.textContent = '';
       showError(root, err);
     } finally {
-      if (mine === seq) root.classList.remove('busy');
+      if (mine === seq) {
+        root.classList.remove('busy');
+        byRoute = false;
+      }
     }
   }
 
@@ -111,18 +132,23 @@ export function init(root, state) {
     }
   }
 
-  // during live edits the spectra wait until the design has rested; the first design of a
-  // newly loaded recording needs no wait
+  // during live edits the spectra wait until the design has rested
   const soon = debounce(load, 150);
   let analysedFor = null;
-  state.on('design', (s) => {
+  state.on('recording', (s) => {
     const rec = s.recording;
-    if (rec && s.design && rec.id !== analysedFor && s.design.fs_in === rec.rate_hz) {
-      analysedFor = rec.id;
-      soon.now();
-    } else {
-      soon();
+    if (!rec || rec.id === analysedFor) return;      // a refresh of the same recording
+    analysedFor = rec.id;
+    setTimeout(() => load({ route: true }), 0);     // once the route has settled for it
+  });
+  state.on('design', (s) => {
+    const d = s.design;
+    if (byRoute) return;                 // the spectra on their way belong to the route
+    if (d && data && data.design_id === d.id) {
+      draw();                            // these spectra are this design's: add its gain
+      return;
     }
+    soon();
   });
   state.on('designError', (s) => {
     stale.hidden = !s.designError;
