@@ -240,14 +240,26 @@ def _overs(path, info, peaks, threshold_dbtp):
 
 
 def _region_blocks(path, regions, frames):
-    """("start", (first frame read, region)), the blocks, ("end", None), region by region."""
-    for a, b in regions:
-        first, stop = max(0, a - REACH_FRAMES), min(frames, b + REACH_FRAMES)
-        yield "start", (first, a, b)
-        for block in media.read_blocks(path, start=first, frames=stop - first,
-                                       blocksize=BLOCK_FRAMES):
-            yield "block", block
-        yield "end", None
+    """("start", (first frame read, region)), the region's frames with REACH_FRAMES either
+    side in blocks, ("end", None), region by region, from one sequential read of the file
+    (seeking a compressed file once per region costs more than decoding it all)."""
+    spans = [(max(0, a - REACH_FRAMES), min(frames, b + REACH_FRAMES), a, b)
+             for a, b in regions]             # apart by more than 2 REACH_FRAMES: disjoint
+    k, at = 0, spans[0][0]
+    for block in media.read_blocks(path, start=at, blocksize=BLOCK_FRAMES):
+        end = at + block.shape[0]
+        while k < len(spans) and spans[k][0] < end:
+            first, stop, a, b = spans[k]
+            if first >= at:
+                yield "start", (first, a, b)
+            yield "block", block[max(first - at, 0):min(stop, end) - at]
+            if stop > end:
+                break                         # the span goes on in the next block
+            yield "end", None
+            k += 1
+        if k == len(spans):
+            return
+        at = end
 
 
 class _RegionSearch:
