@@ -24,12 +24,12 @@ import math
 import os
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 from . import jobs, media
 from .dsp.drift import measure_drift
 from .dsp.errors import ParameterError
 from .dsp.timebase import TimeBase, correct_drift
+from .threads import one_blas_thread
 
 __all__ = ["measure_files", "drift_report", "correction_job", "named_in",
            "verification", "summed_excerpts", "LISTEN_PEAK_DBFS"]
@@ -47,7 +47,7 @@ def _both_at_once(fn, sources, rates):
     """Read and decimate the two recordings on two threads (numpy, scipy and libsndfile
     release the GIL), the BLAS library held to one thread meanwhile: its own threads would
     only compete with them for the cores."""
-    with threadpool_limits(limits=1, user_api="blas"), ThreadPoolExecutor(2) as pool:
+    with one_blas_thread(), ThreadPoolExecutor(2) as pool:
         return list(pool.map(fn, sources, rates))
 
 

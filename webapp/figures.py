@@ -19,7 +19,6 @@ Conventions
 import math
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 from webapp import media
 from webapp.dsp.errors import ParameterError
@@ -27,6 +26,7 @@ from webapp.dsp.polyphase import convert
 from webapp.dsp.spectrum import band_energy_db, bucket_extreme, db, decimate_for_plot, \
     dense_response, response_at, smooth_length, welch_spectrum
 from webapp.dsp.stages import as_plan, cascade_response, plan_options
+from webapp.threads import one_blas_thread
 
 __all__ = ["design_view", "mask_view", "verdict", "plans_view", "minmax_decimate",
            "peak_decimate", "spectra_view", "excerpt_plan", "check_excerpt", "read_frames",
@@ -362,7 +362,7 @@ def spectra_view(path, probe, plan, *, start_s=None, length_s=None, log_axis=Fal
     n_src = 8192 if fs_in <= 50000 else 16384
     n_tgt = smooth_length(max(16, int(round(n_src * fs_out / fs_in))))
     # one BLAS thread, as in the pipeline: the converter's products gain nothing from more
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         for s, l in parts:
             x, y = _padded_convert(path, fs_in, probe.channels, probe.frames, s, l, plan)
             f_src, p_src = welch_spectrum(x, fs_in, nperseg=n_src)

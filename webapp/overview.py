@@ -26,10 +26,9 @@ import functools
 import time
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 from webapp import media
-from webapp.threads import Stages, prefetch
+from webapp.threads import Stages, one_blas_thread, prefetch
 from webapp.dsp.errors import ParameterError
 from webapp.dsp.overs import FULL_SCALE, REACH_FRAMES, TruePeakOvers, full_scale_frames, \
     over_floor
@@ -197,7 +196,7 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
     # the meters run on a thread of their own beside the reader and the columns (read_blocks
     # checks every sample, so they need not); one BLAS thread for the interpolator's small
     # products (more only fight over the cores)
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         with Stages() as stages:
             metering = stages.add(functools.partial(meter.process, checked=True),
                                   "rateferry-overview-meters")

@@ -23,11 +23,10 @@ import os
 import time
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 from . import __version__
 from . import media, riff, riffchunks
-from .threads import Background, Stages, prefetch
+from .threads import Background, Stages, one_blas_thread, prefetch
 from .dsp.channels import apply_layout
 from .dsp.dither import Quantizer
 from .dsp.limiter import TruePeakLimiter
@@ -190,7 +189,7 @@ def execute(job, *, progress=None, cancel=None, tags_comment=True):
     cancel : threading.Event, optional
         When set, the conversion stops at the next block, leaving no output behind.
     """
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         return _execute(job, progress=progress, cancel=cancel, tags_comment=tags_comment)
 
 

@@ -2,10 +2,13 @@
 their inner loops, so a reader, a converter, meters and a writer on their own threads overlap on
 separate cores. Bounded queues keep memory flat; an error in a stage is raised in the caller."""
 
+import contextlib
 import queue
 import threading
 
-__all__ = ["Background", "Stages", "prefetch"]
+from threadpoolctl import threadpool_limits
+
+__all__ = ["Background", "Stages", "prefetch", "one_blas_thread"]
 
 _STOP = object()
 
@@ -124,3 +127,35 @@ def prefetch(blocks, *, depth=3):
             except queue.Empty:
                 pass
         thread.join()
+
+
+_blas_lock = threading.Lock()
+_blas_users = 0
+_blas_limiter = None
+
+
+@contextlib.contextmanager
+def one_blas_thread():
+    """Hold the BLAS library to one thread while any caller is inside, process wide.
+
+    The limit is one setting for the whole process, so a plain ``threadpool_limits`` block
+    ending in one thread (a conversion, the spectra of a page request) would give BLAS its
+    threads back while another thread's conversion still runs; and BLAS rounds the last bit
+    of some products differently on two threads than on one, so that conversion's output
+    would then depend on what else ran beside it. Here the first caller in sets the limit and
+    the last one out restores it. Streaming stages run on their own threads anyway: BLAS's
+    own threads would only compete with them for the cores.
+    """
+    global _blas_users, _blas_limiter
+    with _blas_lock:
+        if _blas_users == 0:
+            _blas_limiter = threadpool_limits(limits=1, user_api="blas")
+        _blas_users += 1
+    try:
+        yield
+    finally:
+        with _blas_lock:
+            _blas_users -= 1
+            if _blas_users == 0:
+                _blas_limiter.restore_original_limits()
+                _blas_limiter = None

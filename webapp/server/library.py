@@ -6,13 +6,13 @@ import logging
 import os
 import threading
 
-from threadpoolctl import threadpool_limits
 
 from webapp import media
 from webapp.dsp.errors import RateferryError
 from webapp.jsontools import jsonable
 from webapp.overview import overview_and_meters
 from webapp.pipeline import measure_file
+from webapp.threads import one_blas_thread
 
 __all__ = ["DEMO_NAME", "DEMO_PAIR", "probe_figures", "measure", "analyse", "RunningAnalyses",
            "register_demo", "register_demo_pair", "find_demo_file", "demo_files"]
@@ -50,7 +50,7 @@ def measure(path, info):
     """
     # the true-peak products are small: BLAS threads only fight each other (and the other
     # requests) over them, ten times slower on a busy machine
-    with threadpool_limits(limits=1, user_api="blas"):
+    with one_blas_thread():
         return dict(measure_file(path, info.rate_hz, info.channels), analysis="done")
 
 
