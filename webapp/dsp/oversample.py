@@ -319,8 +319,9 @@ class PeakInterpolator:
             return peak.astype(np.float64)[None, :]
         envelope = np.ascontiguousarray(pairs[:, _CONTEXT:_CONTEXT + rows * per])
         per_row = envelope.reshape(channels, rows, per)
-        skipped = ~keep
-        per_row[skipped] = np.maximum(per_row[skipped], bound[skipped][:, None])
+        # rows not computed report their bound (a masked maximum: no gathered copies)
+        np.maximum(per_row, np.where(keep, np.float32(0), bound.astype(np.float32))[..., None],
+                   out=per_row)
         if mostly:
             peaks = self._fine_peaks(wins.reshape(channels * rows, width)).T
             np.maximum(per_row, peaks.reshape(channels, rows, per), out=per_row)
