@@ -22,17 +22,16 @@ Figures only; nothing here asserts a time.
 
 import argparse
 import os
-import socket
 import statistics
 import sys
 import tempfile
-import threading
 import time
 
 from scipy import signal
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
+from benchmarks import browser  # noqa: E402
 from webapp.dsp.design import design  # noqa: E402
 from webapp.dsp.rates import route  # noqa: E402
 from webapp.dsp.spec import Spec  # noqa: E402
@@ -41,7 +40,6 @@ from webapp.jsontools import jsonable  # noqa: E402
 
 FS_IN, FS_OUT = 44100, 48000
 ATTENUATION_DB = 120.0
-CHROMIUM = "/usr/bin/chromium"
 
 
 def timed(fn):
@@ -116,50 +114,19 @@ def scipy_times(runs):
 
 def page_times(runs):
     """Edit -> plots drawn in the real page, in ms (median), or None without chromium."""
-    if not os.path.exists(CHROMIUM):
+    if not browser.available():
         return None
-    try:
-        from playwright.sync_api import sync_playwright
-    except ImportError:
-        return None
-    from werkzeug.serving import WSGIRequestHandler, make_server
-    from webapp.server import create_app
-
-    class Quiet(WSGIRequestHandler):
-        def log(self, *args, **kwargs):
-            pass
-
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        port = s.getsockname()[1]
-    with tempfile.TemporaryDirectory() as inst:
-        app = create_app({"INSTANCE_PATH": inst, "SERVER_PORT": port})
-        httpd = make_server("127.0.0.1", port, app, threaded=True, request_handler=Quiet)
-        thread = threading.Thread(target=httpd.serve_forever, daemon=True)
-        thread.start()
-        times = []
-        try:
-            with sync_playwright() as p:
-                browser = p.chromium.launch(executable_path=CHROMIUM,
-                                            args=["--no-sandbox", "--disable-gpu"])
-                page = browser.new_page(viewport={"width": 1500, "height": 1000})
-                page.set_default_timeout(60000)
-                page.goto(f"http://127.0.0.1:{httpd.server_port}/")
-                page.wait_for_selector("body[data-ready='true']")
-                page.click("#tab-filter")
-                page.wait_for_function("() => { const p = document.getElementById("
-                                       "'plot-magnitude'); return p && p.data; }")
-                for i in range(runs + 1):
-                    value = ATTENUATION_DB + 0.5 * (i + 1)
-                    ms = page.evaluate(EDIT_TO_PLOT, value)
-                    if i:
-                        times.append(ms)
-                    page.wait_for_timeout(1500)   # the plans follow; let them settle
-                browser.close()
-        finally:
-            httpd.shutdown()
-            thread.join(timeout=10)
-            app.extensions["rateferry"].shutdown()
+    times = []
+    with browser.ready_page(timeout_ms=60000) as page:
+        page.click("#tab-filter")
+        page.wait_for_function("() => { const p = document.getElementById("
+                               "'plot-magnitude'); return p && p.data; }")
+        for i in range(runs + 1):
+            value = ATTENUATION_DB + 0.5 * (i + 1)
+            ms = page.evaluate(EDIT_TO_PLOT, value)
+            if i:
+                times.append(ms)
+            page.wait_for_timeout(1500)   # the plans follow; let them settle
     return statistics.median(times)
 
 

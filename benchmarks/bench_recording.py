@@ -45,6 +45,7 @@ from threadpoolctl import threadpool_limits
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
+from benchmarks import browser  # noqa: E402
 from webapp import media  # noqa: E402
 from webapp.overview import overview  # noqa: E402
 from webapp.pipeline import Meters, measure_file  # noqa: E402
@@ -217,7 +218,6 @@ def parts(path):
     return out
 
 
-CHROMIUM = "/usr/bin/chromium"
 
 # Choosing the file is done by Playwright; this waits until the page shows the new recording's
 # figures (meters in), its overview and its spectra, and a frame is painted.
@@ -249,48 +249,16 @@ PAGE_READY = """async (name) => new Promise((resolve) => {
 def page_times(path):
     """Seconds from choosing ``path`` in the page to each part shown, or None without
     chromium."""
-    if not os.path.exists(CHROMIUM):
+    if not browser.available():
         return None
-    try:
-        from playwright.sync_api import sync_playwright
-    except ImportError:
-        return None
-    import socket
-    from werkzeug.serving import WSGIRequestHandler, make_server
-    from webapp.server import create_app
-
-    class Quiet(WSGIRequestHandler):
-        def log(self, *args, **kwargs):
-            pass
-
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        s.bind(("127.0.0.1", 0))
-        port = s.getsockname()[1]
-    with tempfile.TemporaryDirectory() as inst:
-        app = create_app({"INSTANCE_PATH": inst, "SERVER_PORT": port})
-        httpd = make_server("127.0.0.1", port, app, threaded=True, request_handler=Quiet)
-        thread = threading.Thread(target=httpd.serve_forever, daemon=True)
-        thread.start()
-        try:
-            with sync_playwright() as p:
-                browser = p.chromium.launch(executable_path=CHROMIUM,
-                                            args=["--no-sandbox", "--disable-gpu"])
-                page = browser.new_page(viewport={"width": 1500, "height": 1000})
-                page.set_default_timeout(900000)
-                page.goto(f"http://127.0.0.1:{port}/")
-                page.wait_for_selector("body[data-ready='true']")
-                page.wait_for_function("() => document.getElementById('plot-spectra').data")
-                page.wait_for_timeout(1500)       # the demo's own work settles
-                # the watch starts before the file is chosen (a promise kept in the page)
-                page.evaluate(f"(name) => {{ window.__benchReady = ({PAGE_READY})(name); }}",
-                              os.path.basename(path))
-                page.set_input_files("#file-input", path)
-                marks = page.evaluate("() => window.__benchReady")
-                browser.close()
-        finally:
-            httpd.shutdown()
-            thread.join(timeout=10)
-            app.extensions["rateferry"].shutdown()
+    with browser.ready_page(timeout_ms=900000) as page:
+        page.wait_for_function("() => document.getElementById('plot-spectra').data")
+        page.wait_for_timeout(1500)       # the demo's own work settles
+        # the watch starts before the file is chosen (a promise kept in the page)
+        page.evaluate(f"(name) => {{ window.__benchReady = ({PAGE_READY})(name); }}",
+                      os.path.basename(path))
+        page.set_input_files("#file-input", path)
+        marks = page.evaluate("() => window.__benchReady")
     return {k: v / 1000.0 for k, v in marks.items()}
 
 
