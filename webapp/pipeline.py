@@ -359,15 +359,24 @@ def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunk
 
 def _execute(job, *, progress, cancel, tags_comment):
     t0 = time.perf_counter()
-    src, source, target = job.probe, job.source, job.target
-    fs_in, fs_out, delivery, out_plan = job.fs_in, job.fs_out, job.delivery, job.output
-    media.refuse_same_file(source, target)
+    media.refuse_same_file(job.source, job.target)
     # the source's sha256 on a thread of its own, beside the conversion rather than after it
-    # (on an error it is left to finish on its own: a daemon thread that only reads)
+    # (on an error it is left to finish reading on its own, not waited for)
     hashes = []
     source_hash = Background(lambda path: hashes.append(media.sha256_file(path)),
                              name="rateferry-source-hash")
-    source_hash.submit(source)
+    source_hash.submit(job.source)
+    try:
+        return _convert(job, progress, cancel, tags_comment, t0, source_hash, hashes)
+    except BaseException:
+        source_hash.leave()
+        raise
+
+
+def _convert(job, progress, cancel, tags_comment, t0, source_hash, hashes):
+    """The passes of :func:`_execute`, then its result (the source's hash from its thread)."""
+    src, source, target = job.probe, job.source, job.target
+    fs_in, fs_out, delivery, out_plan = job.fs_in, job.fs_out, job.delivery, job.output
     tracker = _Progress(job, progress)
     source_meters = Meters(fs_in, src.channels)
     if job.passes == 2:

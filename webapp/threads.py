@@ -54,6 +54,11 @@ class Background:
         self._q.put(_STOP)
         self._thread.join()
 
+    def leave(self):
+        """Let the worker end after what it has in hand, without waiting for it (its thread
+        ends then, rather than waiting for more work that will never come)."""
+        self._q.put(_STOP)
+
 
 class Stages:
     """Background stages that finish (or abort) together, the last added first."""
