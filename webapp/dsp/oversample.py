@@ -290,32 +290,38 @@ class PeakInterpolator:
         groups = -(-span // _MID_GROUP)
         wins = _windows(window, groups, _MID_GROUP + _HALF_TAPS - 1, _MID_GROUP)
         mid = (wins.reshape(channels * groups, -1) @ self._half).reshape(channels, -1)[:, :span]
-        if self.peak_only:
-            fast = self._chunk_peak(window, count, floor, mid, span, rows)
-            if fast is not None:
-                return fast
-        z = np.empty((channels, 2 * span), dtype=np.float32)
-        z[:, 0::2] = window[:, _BEFORE - _CONTEXT:_BEFORE - _CONTEXT + span]
-        z[:, 1::2] = mid
-        zabs = np.abs(z)
-        pairs = np.maximum(zabs[:, 0::2], zabs[:, 1::2])            # per frame, channels x span
+        xs = window[:, _BEFORE - _CONTEXT:_BEFORE - _CONTEXT + span]
+        pairs = np.abs(mid)
+        np.maximum(pairs, np.abs(xs), out=pairs)    # per frame: max(|input|, |half-way point|)
         # a row's inputs (2x samples 8 r - 3 .. 8 r + 11) lie within its frames and 2 either side
         quads = pairs[:, :(rows + 1) * per].reshape(channels, rows + 1, per)
         block = np.maximum(np.maximum(quads[..., 0], quads[..., 1]), np.maximum(quads[..., 2], quads[..., 3]))
         bound = self._gain * np.maximum(block[:, :-1], block[:, 1:])
         keep = bound >= floor[:, None] * (1.0 - 1e-4)
         channel, row = np.nonzero(keep)
+        mostly = channel.size > channels * rows // 2   # then a gather costs more than it saves
+        if self.peak_only and not mostly:
+            # only the kept rows' windows of the 2x stream, gathered from where the inputs and
+            # the half-way points are (the same values, without interleaving the whole chunk)
+            peak = pairs[:, _CONTEXT:_CONTEXT + count].max(axis=1)
+            if channel.size:
+                at = (2 * _CONTEXT - (_FINE_TAPS // 2 - 1) + _FINE_GROUP * row)[:, None] \
+                    + np.arange(_FINE_GROUP + _FINE_TAPS - 1)
+                half, odd = at >> 1, (at & 1).astype(bool)
+                lanes = channel[:, None]
+                gathered = np.where(odd, mid[lanes, half], xs[lanes, half])
+                out = np.abs(self._fine_t @ gathered.T).max(axis=0)
+                np.maximum.at(peak, channel, out)
+            return peak.astype(np.float64)[None, :]
+        z = np.empty((channels, 2 * span), dtype=np.float32)
+        z[:, 0::2] = xs
+        z[:, 1::2] = mid
         width = _FINE_GROUP + _FINE_TAPS - 1
         wins = _windows(z[:, 2 * _CONTEXT - (_FINE_TAPS // 2 - 1):], rows, width, _FINE_GROUP)
-        mostly = channel.size > channels * rows // 2   # then a gather costs more than it saves
         if self.peak_only:
             peak = pairs[:, _CONTEXT:_CONTEXT + count].max(axis=1)
-            if mostly:
-                out = (self._fine_t @ wins.reshape(channels * rows, width).T).reshape(-1, channels, rows)
-                peak = np.maximum(peak, np.maximum(out.max(axis=(0, 2)), -out.min(axis=(0, 2))))
-            elif channel.size:
-                out = np.abs(self._fine_t @ wins[channel, row].T).max(axis=0)
-                np.maximum.at(peak, channel, out)
+            out = (self._fine_t @ wins.reshape(channels * rows, width).T).reshape(-1, channels, rows)
+            peak = np.maximum(peak, np.maximum(out.max(axis=(0, 2)), -out.min(axis=(0, 2))))
             return peak.astype(np.float64)[None, :]
         envelope = np.ascontiguousarray(pairs[:, _CONTEXT:_CONTEXT + rows * per])
         per_row = envelope.reshape(channels, rows, per)
@@ -328,34 +334,6 @@ class PeakInterpolator:
         elif channel.size:
             per_row[channel, row] = np.maximum(per_row[channel, row], self._fine_peaks(wins[channel, row]).T)
         return envelope[:, :count].astype(np.float64)
-
-    def _chunk_peak(self, window, count, floor, mid, span, rows):
-        """:meth:`_chunk`'s per-channel peak without the interleaved 2x stream: the samples
-        and the half-way points are compared where they are, and only the second stage's
-        windows of the rows that can reach the floor are gathered (the same values, the same
-        products). None when most rows can (then the whole stream is cheaper)."""
-        channels, per = self.channels, _FINE_GROUP // 2
-        xs = window[:, _BEFORE - _CONTEXT:_BEFORE - _CONTEXT + span]
-        pairs = np.abs(mid)
-        np.maximum(pairs, np.abs(xs), out=pairs)           # per frame: max(|x|, |half-way|)
-        quads = pairs[:, :(rows + 1) * per].reshape(channels, rows + 1, per)
-        block = np.maximum(np.maximum(quads[..., 0], quads[..., 1]), np.maximum(quads[..., 2], quads[..., 3]))
-        bound = self._gain * np.maximum(block[:, :-1], block[:, 1:])
-        channel, row = np.nonzero(bound >= floor[:, None] * (1.0 - 1e-4))
-        if channel.size > channels * rows // 2:
-            return None
-        peak = pairs[:, _CONTEXT:_CONTEXT + count].max(axis=1)
-        if channel.size:
-            # row r's window is 2x samples 1 + 8 r .. 15 + 8 r: even ones are inputs, odd ones
-            # half-way points (the 2x stream from frame -_CONTEXT on)
-            at = (2 * _CONTEXT - (_FINE_TAPS // 2 - 1) + _FINE_GROUP * row)[:, None] \
-                + np.arange(_FINE_GROUP + _FINE_TAPS - 1)
-            half, odd = at >> 1, (at & 1).astype(bool)
-            lanes = channel[:, None]
-            wins = np.where(odd, mid[lanes, half], xs[lanes, half])
-            out = np.abs(self._fine_t @ wins.T).max(axis=0)
-            np.maximum.at(peak, channel, out)
-        return peak.astype(np.float64)[None, :]
 
     def _fine_peaks(self, wins):
         """Per-frame peak (frames per row x rows) of the second stage's outputs of ``wins``."""
