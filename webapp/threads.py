@@ -51,7 +51,7 @@ class Background:
             raise self._error
 
     def abort(self):
-        self._q.put(_STOP)
+        self.leave()
         self._thread.join()
 
     def leave(self):

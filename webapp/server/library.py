@@ -6,7 +6,6 @@ import logging
 import os
 import threading
 
-
 from webapp import media
 from webapp.dsp.errors import RateferryError
 from webapp.jsontools import jsonable
