@@ -33,6 +33,7 @@ import time
 import numpy as np
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+sys.path.insert(0, ROOT)      # --stages imports the checkout's webapp in this process
 RATE_IN, RATE_OUT = 44100, 48000
 
 _IO_FLOOR = textwrap.dedent("""
