@@ -22,10 +22,10 @@ one read (the upload without ``columns``: its meters read the file, then the ove
 again), for a before/after in one run. ``--parts`` (default for files up to 10 minutes) times
 the parts of the one read alone, one after the other on one thread: reading the file, the
 meters (BS.1770 loudness and true peak, as measure_file), the overview's columns, the search
-for overs (only where a sample is loud enough, read again; none when the true peak stays under
-0 dBTP); and beside them the two separate reads of before. ``--page`` also loads the
-file in the real page (Debian's chromium through Playwright, the real server on a loopback
-port): from choosing the file to its figures, its overview and its spectra drawn.
+for overs (in the same read, from where the meter's running true peak first reads over 0 dBTP;
+none when it stays under); and beside them the two separate reads of before. ``--page`` also
+loads the file in the real page (Debian's chromium through Playwright, the real server on a
+loopback port): from choosing the file to its figures, its overview and its spectra drawn.
 
 Reference beside each figure: reading the file once with soundfile (all of it, in blocks), the
 least any analysis of the whole file costs. Wall and CPU seconds of this process (CPU counts
@@ -203,20 +203,45 @@ def parts(path):
         out["meters"] = dict(wall_s=w, cpu_s=c)
         grid, w, c = timed(columns)
         out["columns"] = dict(wall_s=w, cpu_s=c)
-        blocks.clear()
-        from webapp.overview import _overs
-        # the one read searches only when the true peak reads over 0 dBTP
-        if (figures["true_peak_dbtp"] or -1.0) > 0.0:
-            found, w, c = timed(lambda: _overs(path, info, grid.stretch_peaks(), 0.0))
+        # the one read searches from where the meter's running true peak goes over 0 dBTP
+        start = _search_from(blocks, info) if (figures["true_peak_dbtp"] or -1.0) > 0.0 \
+            else None
+        if start is not None:
+            found, w, c = timed(lambda: _search(blocks, info, start))
             out["overs"] = dict(wall_s=w, cpu_s=c, frames=int(found.size))
         else:
             out["overs"] = dict(wall_s=0.0, cpu_s=0.0, frames=0)
+        blocks.clear()
         _, w, c = timed(lambda: measure_file(path, info.rate_hz, info.channels))
         out["before_meters"] = dict(wall_s=w, cpu_s=c)
     _, w, c = timed(lambda: overview(path, columns=COLUMNS, probe=info))
     out["before_overview"] = dict(wall_s=w, cpu_s=c)
     return out
 
+
+def _search_from(blocks, info):
+    """The first frame the one read searches for overs (as its true-peak stage decides)."""
+    from webapp.dsp.loudness import TruePeakMeter
+    from webapp.overview import _search_start
+    meter = TruePeakMeter(rate_hz=info.rate_hz, channels=info.channels)
+    for b in blocks:
+        measured, _ = meter.running()
+        meter.process(b, checked=True)
+        if meter.running()[1] > 1.0:
+            return _search_start(measured)
+    return _search_start(meter.running()[0])
+
+
+def _search(blocks, info, start):
+    """The search for overs alone, from frame ``start`` (the blocks are the whole file)."""
+    from webapp.dsp.overs import TruePeakOvers
+    finder = TruePeakOvers(channels=info.channels)
+    found, at = [], 0
+    for b in blocks:
+        if at + b.shape[0] > start:
+            found.append(finder.process(b[max(start - at, 0):]))
+        at += b.shape[0]
+    return np.concatenate(found + [finder.finish()])
 
 
 # Choosing the file is done by Playwright; this waits until the page shows the new recording's
@@ -317,7 +342,7 @@ def main(argv=None):
         for key, label in (("probe", "probe"), ("read", "read the file (soundfile)"),
                            ("meters", "meters (loudness, true peak)"),
                            ("columns", "overview columns (min, max, full scale)"),
-                           ("overs", "overs: only over 0 dBTP, where samples are loud"),
+                           ("overs", "overs: searched from where the true peak goes over"),
                            ("before_meters", "before: meters alone (measure_file)"),
                            ("before_overview", "before: overview alone (its own read)")):
             rows.append(dict(name=f"  alone, CPU: {label}", value=alone[key]["cpu_s"],

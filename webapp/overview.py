@@ -6,10 +6,11 @@ One streaming pass in blocks (:func:`webapp.media.read_blocks`): memory stays fl
 duration (the loudness meter keeps one number per 100 ms: 36 000 an hour). The meters are the
 conversion pipeline's (:class:`webapp.pipeline.Meters`: BS.1770-4 loudness, whose meter also
 gives the EBU Tech 3341 short-term curve, and the true-peak meter), on a thread of their own
-beside the reader. The overs need the true-peak envelope frame by frame
-(:class:`webapp.dsp.overs.TruePeakOvers`), several times the meter's cost: they are looked for
-only when the meter reads over the threshold, and then only in the stretches where a sample is
-loud enough to take the true peak there (:func:`webapp.dsp.overs.over_floor`), read again.
+beside the reader. The overs are searched frame by frame
+(:class:`webapp.dsp.overs.TruePeakOvers`) in the same read, on the true-peak meter's thread,
+from the chunk where the meter's running true peak first goes over the threshold: no frame
+before it can be an over (the meter computes every value that can reach its running peak), so a
+recording under the threshold is never searched.
 
 Conventions
 -----------
@@ -30,8 +31,8 @@ import numpy as np
 from webapp import media
 from webapp.threads import Stages, one_blas_thread, prefetch
 from webapp.dsp.errors import ParameterError
-from webapp.dsp.overs import FULL_SCALE, REACH_FRAMES, TruePeakOvers, full_scale_frames, \
-    over_floor
+from webapp.dsp.overs import FULL_SCALE, REACH_FRAMES, TruePeakOvers, full_scale_frames
+from webapp.dsp.oversample import CHUNK_FRAMES
 from webapp.pipeline import BLOCK_FRAMES, Meters
 
 __all__ = ["overview", "overview_and_meters", "DEFAULT_COLUMNS", "MAX_COLUMNS",
@@ -41,8 +42,6 @@ DEFAULT_COLUMNS = 1200
 MAX_COLUMNS = 4000
 #: True-peak overs are reported above this level: 0 dBTP, over full scale once reconstructed.
 OVER_THRESHOLD_DBTP = 0.0
-#: The stretch whose loudest sample says whether the overs are looked for in it.
-STRETCH_FRAMES = 8192
 
 
 def _columns(value, frames):
@@ -76,8 +75,7 @@ class _Markers:
 
 
 class _Columns:
-    """The overview's per-column figures, fed the blocks in order (min, max, full scale), and
-    the loudest sample of every stretch of :data:`STRETCH_FRAMES` frames."""
+    """The overview's per-column figures, fed the blocks in order (min, max, full scale)."""
 
     def __init__(self, columns, frames):
         self.n = columns
@@ -89,7 +87,6 @@ class _Columns:
         self.clipped = _Markers(columns)
         self.overs = _Markers(columns)
         self.pos = 0
-        self._stretches = []
 
     def column_of(self, frames):
         return np.searchsorted(self.edges, frames, side="right") - 1
@@ -98,8 +95,8 @@ class _Columns:
         m, channels = block.shape
         if m == 0:
             return
-        # a column's (a stretch's) frames are one run of the interleaved samples, so one
-        # reduction gives its extreme over all channels
+        # a column's frames are one run of the interleaved samples, so one reduction gives its
+        # extreme over all channels
         flat = np.ascontiguousarray(block).reshape(-1)
         first, last = self.column_of([self.pos, self.pos + m - 1])
         cols = np.arange(first, last + 1)
@@ -111,19 +108,7 @@ class _Columns:
             self.clipped.add(at_fs, self.column_of(at_fs))
         self.low[cols] = np.minimum(self.low[cols], lo)
         self.high[cols] = np.maximum(self.high[cols], hi)
-        k = np.arange(self.pos // STRETCH_FRAMES, (self.pos + m - 1) // STRETCH_FRAMES + 1)
-        at = np.maximum(k * STRETCH_FRAMES - self.pos, 0) * channels
-        peaks = np.maximum(np.maximum.reduceat(flat, at), -np.minimum.reduceat(flat, at))
-        if self.pos % STRETCH_FRAMES:            # the first stretch began in the last block
-            self._stretches[-1][-1] = max(self._stretches[-1][-1], peaks[0])
-            peaks = peaks[1:]
-        self._stretches.append(peaks)
         self.pos += m
-
-    def stretch_peaks(self):
-        """The loudest |sample| of every stretch of STRETCH_FRAMES frames (the last may be
-        shorter), over all channels."""
-        return np.concatenate(self._stretches) if self._stretches else np.zeros(0)
 
     def add_overs(self, frames):
         self.overs.add(frames, self.column_of(frames))
@@ -170,10 +155,9 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
 
     The meters are :func:`webapp.pipeline.measure_file`'s, the pipeline's
     :class:`~webapp.pipeline.Meters` fed the same blocks: BS.1770 loudness (whose meter also
-    gives the short-term curve) and the true-peak meter. The overs need the true-peak envelope
-    frame by frame, which costs several times the meter: they are looked for only when the
-    meter reads over the threshold, and then only where a sample is loud enough to take the
-    true peak there (:func:`webapp.dsp.overs.over_floor`), reading those stretches again.
+    gives the short-term curve) and the true-peak meter. The overs are searched on the
+    true-peak meter's thread from where its running reading first goes over the threshold
+    (:class:`_PeakAndOvers`), and reported only when the meter reads over it.
     :func:`overview` is this read without the meters.
 
     Returns
@@ -193,15 +177,17 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
         raise ParameterError("the recording has no frames to draw", "recording_id")
     grid = _Columns(_columns(columns, frames), frames)
     meter = Meters(rate, info.channels)
+    peak = _PeakAndOvers(meter.peak, info.channels, over_threshold_dbtp)
     # the meters run on threads of their own beside the reader and the columns (read_blocks
     # checks every sample, so they need not); one BLAS thread for the interpolator's small
     # products (more only fight over the cores)
     with one_blas_thread():
         with Stages() as stages:
             # loudness and true peak on a thread each (measured: 60 min FLAC 11.1 -> 10.4 s)
-            parts = [m for m in (meter.loud, meter.peak) if m is not None]
-            metering = [stages.add(functools.partial(m.process, checked=True),
-                                   f"rateferry-overview-meter-{i}") for i, m in enumerate(parts)]
+            parts = [functools.partial(meter.loud.process, checked=True)] \
+                if meter.loud is not None else []
+            metering = [stages.add(fn, f"rateferry-overview-meter-{i}")
+                        for i, fn in enumerate(parts + [peak.take])]
             for block in prefetch(media.read_blocks(path, blocksize=BLOCK_FRAMES)):
                 for stage in metering:
                     stage.submit(block)
@@ -209,7 +195,7 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
         meters = meter.result()
         reading = meters["true_peak_dbtp"]
         if reading is not None and reading > over_threshold_dbtp:
-            grid.add_overs(_overs(path, info, grid.stretch_peaks(), over_threshold_dbtp))
+            grid.add_overs(peak.overs())
     figures = dict(
         rate_hz=rate, channels=info.channels, frames=frames, duration_s=frames / rate,
         columns=grid.n, **grid.figures(rate, meter.loud),
@@ -218,75 +204,71 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
     return figures, meters
 
 
-def _overs(path, info, peaks, threshold_dbtp):
-    """Frames whose true peak goes over ``threshold_dbtp``, searched in the stretches where a
-    sample reaches :func:`over_floor` and :data:`REACH_FRAMES` around them (anywhere else the
-    envelope stays under the threshold), each read again with that much context either side.
+class _PeakAndOvers:
+    """The true-peak meter fed block by block, and the search for the overs from where its
+    running reading first goes over the threshold.
+
+    While the meter's running peak stays at or under the threshold, no frame it has measured
+    is an over (:meth:`webapp.dsp.loudness.TruePeakMeter.running`): only the input a search
+    would need from there is kept (the frames from REACH_FRAMES before the first frame not
+    measured, a chunk or two). When it goes over, a :class:`~webapp.dsp.overs.TruePeakOvers`
+    starts on the frames not known to stay under, and is then fed every block. Its stream
+    starts on a chunk boundary of the file (:data:`~webapp.dsp.oversample.CHUNK_FRAMES`), so
+    its products are those of a search of the whole file, and the overs it finds from the
+    first frame not measured on are the same.
     """
-    loud = np.flatnonzero(peaks >= over_floor(threshold_dbtp))
-    if loud.size == 0:
-        return np.zeros(0, dtype=np.int64)
-    # stretches that can hold an over (a loud one and REACH_FRAMES either side), merged
-    starts = np.maximum(loud * STRETCH_FRAMES - REACH_FRAMES, 0)
-    stops = np.minimum((loud + 1) * STRETCH_FRAMES + REACH_FRAMES, info.frames)
-    joined = np.flatnonzero(starts[1:] > stops[:-1] + 2 * REACH_FRAMES)
-    regions = list(zip(starts[np.r_[0, joined + 1]], stops[np.r_[joined, loud.size - 1]]))
-    # the search on a thread of its own, beside the reader (measured: a thread per group of
-    # channels costs more in all than it saves)
-    search = _RegionSearch(info.channels, threshold_dbtp)
-    with Stages() as stages:
-        searching = stages.add(search.take, "rateferry-overview-overs")
-        for item in prefetch(_region_blocks(path, regions, info.frames)):
-            searching.submit(item)
-    return np.unique(np.concatenate(search.found))
 
-
-def _region_blocks(path, regions, frames):
-    """("start", (first frame read, region)), the region's frames with REACH_FRAMES either
-    side in blocks, ("end", None), region by region, from one sequential read of the file
-    (seeking a compressed file once per region costs more than decoding it all)."""
-    spans = [(max(0, a - REACH_FRAMES), min(frames, b + REACH_FRAMES), a, b)
-             for a, b in regions]             # apart by more than 2 REACH_FRAMES: disjoint
-    k, at = 0, spans[0][0]
-    for block in media.read_blocks(path, start=at, blocksize=BLOCK_FRAMES):
-        end = at + block.shape[0]
-        while k < len(spans) and spans[k][0] < end:
-            first, stop, a, b = spans[k]
-            if first >= at:
-                yield "start", (first, a, b)
-            yield "block", block[max(first - at, 0):min(stop, end) - at]
-            if stop > end:
-                break                         # the span goes on in the next block
-            yield "end", None
-            k += 1
-        if k == len(spans):
-            return
-        at = end
-
-
-class _RegionSearch:
-    """The overs region by region: a fresh finder for each, fed the region with its context;
-    the overs inside the region are kept (those at a file's first or last frame include the
-    ringing beyond it, as documented)."""
-
-    def __init__(self, channels, threshold_dbtp):
+    def __init__(self, meter, channels, threshold_dbtp):
+        self.meter = meter
         self.channels, self.threshold_dbtp = channels, threshold_dbtp
+        self.level = 10.0 ** (threshold_dbtp / 20.0)
+        self.kept, self.kept_at = [], 0            # the input from frame kept_at on
+        self.finder = None
         self.found = []
 
-    def take(self, item):
-        kind, value = item
-        if kind == "start":
-            self.offset, self.region = value[0], value[1:]
-            self.finder = TruePeakOvers(channels=self.channels,
-                                        threshold_dbtp=self.threshold_dbtp)
-            self.parts = []
-        elif kind == "block":
-            self.parts.append(self.finder.process(value))
+    def take(self, block):
+        """Measure ``block``; search it too once the reading has gone over."""
+        measured, _ = self.meter.running()
+        self.meter.process(block, checked=True)
+        if self.finder is not None:
+            self._keep(self.finder.process(block))
+            return
+        self.kept.append(block)
+        now, peak = self.meter.running()
+        if peak > self.level:
+            self._start(measured)
         else:
-            self.parts.append(self.finder.finish())
-            frames = np.concatenate(self.parts) + self.offset
-            a, b = self.region
-            self.found.append(frames[(frames >= a) & (frames < b)])
+            first = _search_start(now)
+            while self.kept and self.kept_at + self.kept[0].shape[0] <= first:
+                self.kept_at += self.kept.pop(0).shape[0]
+
+    def overs(self):
+        """Frame indices (int64, ascending) of every over; the search ends here. When the
+        reading went over only in the meter's last chunks (or the ringing after the last
+        frame), those are searched now."""
+        if self.finder is None:
+            self._start(self.meter.running()[0])
+        self._keep(self.finder.finish())
+        return np.concatenate(self.found)
+
+    def _start(self, measured):
+        """Search from frame ``measured`` on (no frame before it is an over)."""
+        first = _search_start(measured)
+        self.finder = TruePeakOvers(channels=self.channels, threshold_dbtp=self.threshold_dbtp)
+        self.offset, self.wanted = first, max(measured, 0)
+        kept = np.concatenate(self.kept) if self.kept else np.zeros((0, self.channels))
+        self.kept = []
+        self._keep(self.finder.process(kept[first - self.kept_at:]))
+
+    def _keep(self, frames):
+        frames = frames + self.offset
+        self.found.append(frames[frames >= self.wanted])
+
+
+def _search_start(measured):
+    """Where a search of the frames from ``measured`` on starts: REACH_FRAMES before it (the
+    input its envelope depends on), down to a chunk boundary of the file."""
+    return max(0, (measured - REACH_FRAMES) // CHUNK_FRAMES * CHUNK_FRAMES)
 
 
 def _short_term_columns(loud, edges, rate):

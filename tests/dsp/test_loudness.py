@@ -24,7 +24,7 @@ from webapp.dsp.loudness import (
     LoudnessMeter, TruePeakMeter, annex2_interpolator, default_channel_weights, integrated_loudness,
     k_weighting, true_peak, true_peak_oversampling,
 )
-from webapp.dsp.oversample import EDGE_FRAMES, PeakInterpolator, prototype
+from webapp.dsp.oversample import CHUNK_FRAMES, EDGE_FRAMES, PeakInterpolator, prototype
 
 
 def tone(level_dbfs, seconds, rate_hz, *, freq_hz=1000.0, channels=2, phase=0.0):
@@ -565,6 +565,39 @@ def test_true_peak_meter_is_block_size_invariant(rng):
     meter.process(x)
     whole = meter.result()
     assert in_blocks(TruePeakMeter(rate_hz=rate, channels=2), x, rng, largest=3000) == whole
+
+
+def test_true_peak_meter_takes_blocks_shorter_than_the_interpolators_context(rng):
+    # blocks of a few frames (less than the 32 frames a half-way point looks ahead) used to
+    # move the meter back a chunk; the reading is the whole block's
+    rate = 44100
+    x = rng.standard_normal((20000, 2)) * 0.3
+    whole = TruePeakMeter(rate_hz=rate, channels=2)
+    whole.process(x)
+    for step in (1, 7, 40):
+        meter = TruePeakMeter(rate_hz=rate, channels=2)
+        for i in range(0, x.shape[0], step):
+            meter.process(x[i:i + step])
+        assert meter.result() == whole.result()
+
+
+def test_the_running_reading_bounds_every_frame_measured_so_far(rng):
+    # against the plain envelope (every row computed, itself checked against the
+    # scipy.signal.upfirdn oracle above): no frame before ``frames`` is above the running peak,
+    # which is the loudest of them; ``frames`` follows the input a chunk behind
+    rate = 48000
+    x = rng.standard_normal((100000, 2)) * np.linspace(0.05, 0.3, 100000)[:, None]
+    interp = PeakInterpolator(2)
+    envelope = np.concatenate([interp.process(x, 0.0), interp.finish(0.0)]).max(axis=1)
+    meter = TruePeakMeter(rate_hz=rate, channels=2)
+    assert meter.running() == (-EDGE_FRAMES, 0.0)
+    for i in range(0, x.shape[0], 30000):
+        meter.process(x[i:i + 30000])
+        frames, peak = meter.running()
+        assert (frames + EDGE_FRAMES) % CHUNK_FRAMES == 0
+        assert 0 < min(i + 30000, x.shape[0]) - frames <= CHUNK_FRAMES + 100
+        assert peak == pytest.approx(envelope[:frames + EDGE_FRAMES].max(), rel=1e-6)
+        assert envelope[:frames + EDGE_FRAMES].max() <= peak * (1 + 1e-6)
 
 
 def test_true_peak_is_never_below_the_sample_peak(rng):

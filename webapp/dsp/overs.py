@@ -89,17 +89,9 @@ class TruePeakOvers:
                                  f"{threshold_dbtp!r}", "threshold_dbtp")
         self.threshold = 10.0 ** (threshold_dbtp / 20.0)
         self._interp = PeakInterpolator(channels)
-        self._next = -EDGE_FRAMES  # the frame of the next envelope value (ringing before 0 first)
         self._frames = 0
 
-    def _overs(self, envelope):
-        n = envelope.shape[0]
-        first = self._next
-        self._next += n
-        if n == 0:
-            return np.zeros(0, dtype=np.int64)
-        level = _channel_max(envelope)
-        frames = np.flatnonzero(level > self.threshold).astype(np.int64) + first
+    def _clip(self, frames):
         # ringing before the first frame or after the last belongs to the frame beside it
         return np.unique(np.clip(frames, 0, max(self._frames - 1, 0)))
 
@@ -112,16 +104,8 @@ class TruePeakOvers:
             raise ParameterError(f"block must have {self._interp.channels} channels, got "
                                  f"{x.shape[1]}", "block")
         self._frames += x.shape[0]
-        return self._overs(self._interp.process(x, self.threshold))
+        return self._clip(self._interp.overs(x, self.threshold))
 
     def finish(self):
         """The overs among the frames still held back; the stream is over after this."""
-        return self._overs(self._interp.finish(self.threshold))
-
-
-def _channel_max(envelope):
-    """Largest value of each frame over its channels (a loop: see :func:`frame_peaks`)."""
-    level = envelope[:, 0].copy()
-    for c in range(1, envelope.shape[1]):
-        np.maximum(level, envelope[:, c], out=level)
-    return level
+        return self._clip(self._interp.finish_overs(self.threshold))

@@ -35,8 +35,8 @@ import numpy as np
 from scipy import signal
 
 
-__all__ = ["OVERSAMPLING", "PASSBAND_FRACTION", "InterpolatorDesign", "interpolator_design",
-           "prototype", "PeakInterpolator"]
+__all__ = ["OVERSAMPLING", "PASSBAND_FRACTION", "CHUNK_FRAMES", "EDGE_FRAMES",
+           "InterpolatorDesign", "interpolator_design", "prototype", "PeakInterpolator"]
 
 OVERSAMPLING = 16
 PASSBAND_FRACTION = 0.475      # of the sample rate: the band the interpolator is flat over
@@ -46,7 +46,8 @@ _FINE_TAPS = 8                 # second stage: taps per phase
 _FINE_BETA = 7.0               # Kaiser window of the second stage
 _MID_GROUP = 32                # first stage: half-way points per row of its product
 _FINE_GROUP = 8                # second stage: 2x samples per row of its product
-_CHUNK_FRAMES = 8192           # frames per chunk: the unit of work at fixed stream positions
+#: Frames per chunk: the unit of work, at fixed positions of the stream (from -EDGE_FRAMES).
+CHUNK_FRAMES = 8192
 
 
 @dataclass(frozen=True)
@@ -190,6 +191,12 @@ class PeakInterpolator:
         self._next = -EDGE_FRAMES          # first frame whose envelope is not yet reported
         self.frames_in = 0
 
+    @property
+    def covered(self):
+        """The first frame whose envelope is not reported yet (the stream's frames count from
+        0; the ringing before an abrupt start from ``-EDGE_FRAMES``)."""
+        return self._next
+
     def process(self, block, floor=0.0, *, running=False):
         """Take frames x channels float ``block``; return the envelope of completed frames.
 
@@ -198,24 +205,62 @@ class PeakInterpolator:
         this call (a meter's running peak): pass the peak of everything returned before as
         ``floor`` and the skip pattern, hence every figure, is the same for any split.
         """
-        x = np.asarray(block, dtype=np.float32)
-        if x.shape[0]:
-            self._buf = np.concatenate([self._buf, x.T], axis=1)
-            self.frames_in += x.shape[0]
-        ready = (self._start + self._buf.shape[1] - _AFTER - self._next) // _CHUNK_FRAMES
-        return self._run(ready * _CHUNK_FRAMES, floor, running)
+        return self._run(self._take(block), floor, running)
 
     def finish(self, floor=0.0, *, running=False):
         """Return the envelope of the remaining frames, through ``frames + EDGE_FRAMES - 1``.
 
         The stream is over after this call.
         """
+        return self._run(self._end(), floor, running)
+
+    def overs(self, block, level):
+        """Take a block as :meth:`process` does; return the frames it completes whose envelope
+        exceeds ``level`` in any channel (int64, ascending, from ``-EDGE_FRAMES`` on).
+
+        The same figures as ``process(block, level)`` compared with ``level`` (the same
+        products, skipping the same rows), without the envelope: a chunk whose bound
+        (``chunk_gain`` times its largest |sample| in reach) stays under ``level`` costs one
+        reduction, a chunk with no row that can reach it only the first stage.
+        """
+        return self._run_overs(self._take(block), level)
+
+    def finish_overs(self, level):
+        """The overs among the remaining frames (as :meth:`overs`), through
+        ``frames + EDGE_FRAMES - 1``; the stream is over after this call."""
+        return self._run_overs(self._end(), level)
+
+    def _take(self, block):
+        """Append ``block`` to the input; return how many frames are ready (whole chunks)."""
+        x = np.asarray(block, dtype=np.float32)
+        if x.shape[0]:
+            self._buf = np.concatenate([self._buf, x.T], axis=1)
+            self.frames_in += x.shape[0]
+        # none ready yet while the input holds less than the context after the next frame
+        ready = (self._start + self._buf.shape[1] - _AFTER - self._next) // CHUNK_FRAMES
+        return max(ready, 0) * CHUNK_FRAMES
+
+    def _end(self):
+        """Pad the input with the silence after it; return the frames left to report."""
         end = self.frames_in + EDGE_FRAMES
         have = self._start + self._buf.shape[1]
         pad = end + _AFTER - have
         if pad > 0:
             self._buf = np.concatenate([self._buf, np.zeros((self.channels, pad), np.float32)], axis=1)
-        return self._run(end - self._next, floor, running)
+        return end - self._next
+
+    def _window(self, offset, count):
+        """The input a chunk of ``count`` frames from ``self._next + offset`` needs."""
+        lo = self._next + offset - _BEFORE - self._start
+        return self._buf[:, lo:lo + _BEFORE + count + _AFTER]
+
+    def _advance(self, frames):
+        """Mark ``frames`` more frames reported and drop the input no later chunk needs."""
+        self._next += int(frames)
+        cut = self._next - _BEFORE - self._start
+        if cut > 0:
+            self._buf = np.ascontiguousarray(self._buf[:, cut:])
+            self._start += cut
 
     def _run(self, frames, floor, running):
         """Envelope (or peak) of ``frames`` frames from ``self._next``, chunk by chunk."""
@@ -223,21 +268,14 @@ class PeakInterpolator:
         if self.peak_only and running:
             return self._run_peaks(frames, floor)
         parts = []
-        done = 0
-        while done < frames:
-            count = min(_CHUNK_FRAMES, frames - done)
-            lo = self._next - _BEFORE - self._start
-            window = self._buf[:, lo:lo + _BEFORE + count + _AFTER]
-            part = self._chunk(window, count, floor)        # channels x count, or 1 x channels
+        for a in range(0, frames, CHUNK_FRAMES):
+            count = min(CHUNK_FRAMES, frames - a)
+            # channels x count, or 1 x channels
+            part = self._chunk(self._window(a, count), count, floor)
             parts.append(part)
             if running:
                 np.maximum(floor, part[0] if self.peak_only else part.max(axis=1), out=floor)
-            self._next += count
-            done += count
-        cut = self._next - _BEFORE - self._start
-        if cut > 0:
-            self._buf = np.ascontiguousarray(self._buf[:, cut:])
-            self._start += cut
+        self._advance(frames)
         if self.peak_only:
             return np.max(parts, axis=0) if parts else np.zeros((0, self.channels))
         if not parts:
@@ -251,13 +289,12 @@ class PeakInterpolator:
         interpolated at all: it reports its sample peak, which is below the floor too. The
         peak returned is the same as chunk by chunk in order (every value that can reach the
         floor is computed); only values under it may differ."""
-        starts = np.arange(0, frames, _CHUNK_FRAMES)
-        counts = np.minimum(_CHUNK_FRAMES, frames - starts)
-        base = self._next - _BEFORE - self._start
+        starts = np.arange(0, frames, CHUNK_FRAMES)
+        counts = np.minimum(CHUNK_FRAMES, frames - starts)
         samples = np.empty((starts.size, self.channels))
         reach = np.empty((starts.size, self.channels))
         for k, (a, n) in enumerate(zip(starts, counts)):
-            mags = np.abs(self._buf[:, base + a:base + a + _BEFORE + n + _AFTER])
+            mags = np.abs(self._window(a, n))
             samples[k] = mags[:, _BEFORE:_BEFORE + n].max(axis=1)
             reach[k] = mags.max(axis=1)
         peak = np.zeros(self.channels)
@@ -266,22 +303,36 @@ class PeakInterpolator:
             if np.all(self._chunk_gain * reach[k] < floor * (1.0 - 1e-4)):
                 part = samples[k]
             else:
-                window = self._buf[:, base + a:base + a + _BEFORE + n + _AFTER]
-                part = self._chunk(window, n, floor)[0]
+                part = self._chunk(self._window(a, n), n, floor)[0]
             np.maximum(floor, part, out=floor)
             np.maximum(peak, part, out=peak)
-        self._next += int(frames)
-        cut = self._next - _BEFORE - self._start
-        if cut > 0:
-            self._buf = np.ascontiguousarray(self._buf[:, cut:])
-            self._start += cut
+        self._advance(frames)
         return peak[None, :] if frames > 0 else np.zeros((0, self.channels))
 
-    def _chunk(self, window, count, floor):
-        """Envelope (channels x count) of the frames of ``window`` after its first _BEFORE.
+    def _run_overs(self, frames, level):
+        """Frames (from ``self._next``, ``frames`` of them) whose envelope exceeds ``level``."""
+        level = float(level)
+        # the least float32 value above level as a float64: the envelope is float32, and
+        # numpy compares a float32 array with a float in float32
+        cut = np.float32(level)
+        if float(cut) <= level:
+            cut = np.nextafter(cut, np.float32(np.inf))
+        found = []
+        for a in range(0, frames, CHUNK_FRAMES):
+            count = min(CHUNK_FRAMES, frames - a)
+            window = self._window(a, count)
+            # the chunk's bound first: most chunks of programme stop here (every row's bound
+            # is at most this one)
+            if self._chunk_gain * float(max(window.max(), -window.min())) >= level * (1.0 - 1e-4):
+                over = self._chunk_overs(window, count, level, cut)
+                found.append(np.flatnonzero(over).astype(np.int64) + (self._next + a))
+        self._advance(frames)
+        return np.concatenate(found) if found else np.zeros(0, dtype=np.int64)
 
-        With ``self.peak_only``, the per-channel peak of those frames instead (1 x channels).
-        """
+    def _first_stage(self, window, count):
+        """The half-way points ``mid`` and the inputs ``xs`` of the frames of ``window`` after
+        its first _BEFORE (channels x span, from 2 frames before), and per frame the larger
+        magnitude of the two (``pairs``); the rows of the second stage."""
         channels = self.channels
         per = _FINE_GROUP // 2                     # frames per second-stage row
         rows = -(-count // per)
@@ -293,10 +344,26 @@ class PeakInterpolator:
         xs = window[:, _BEFORE - _CONTEXT:_BEFORE - _CONTEXT + span]
         pairs = np.abs(mid)
         np.maximum(pairs, np.abs(xs), out=pairs)    # per frame: max(|input|, |half-way point|)
+        return mid, xs, pairs, rows
+
+    def _bounds(self, pairs, rows):
+        """The bound of every second-stage row (channels x rows): ``fine_gain`` times its
+        largest 2x sample in reach."""
+        per = _FINE_GROUP // 2
         # a row's inputs (2x samples 8 r - 3 .. 8 r + 11) lie within its frames and 2 either side
-        quads = pairs[:, :(rows + 1) * per].reshape(channels, rows + 1, per)
+        quads = pairs[:, :(rows + 1) * per].reshape(self.channels, rows + 1, per)
         block = np.maximum(np.maximum(quads[..., 0], quads[..., 1]), np.maximum(quads[..., 2], quads[..., 3]))
-        bound = self._gain * np.maximum(block[:, :-1], block[:, 1:])
+        return self._gain * np.maximum(block[:, :-1], block[:, 1:])
+
+    def _chunk(self, window, count, floor):
+        """Envelope (channels x count) of the frames of ``window`` after its first _BEFORE.
+
+        With ``self.peak_only``, the per-channel peak of those frames instead (1 x channels).
+        """
+        channels = self.channels
+        per = _FINE_GROUP // 2                     # frames per second-stage row
+        mid, xs, pairs, rows = self._first_stage(window, count)
+        bound = self._bounds(pairs, rows)
         keep = bound >= floor[:, None] * (1.0 - 1e-4)
         channel, row = np.nonzero(keep)
         mostly = channel.size > channels * rows // 2   # then a gather costs more than it saves
@@ -305,19 +372,11 @@ class PeakInterpolator:
             # the half-way points are (the same values, without interleaving the whole chunk)
             peak = pairs[:, _CONTEXT:_CONTEXT + count].max(axis=1)
             if channel.size:
-                at = (2 * _CONTEXT - (_FINE_TAPS // 2 - 1) + _FINE_GROUP * row)[:, None] \
-                    + np.arange(_FINE_GROUP + _FINE_TAPS - 1)
-                half, odd = at >> 1, (at & 1).astype(bool)
-                lanes = channel[:, None]
-                gathered = np.where(odd, mid[lanes, half], xs[lanes, half])
-                out = np.abs(self._fine_t @ gathered.T).max(axis=0)
+                out = np.abs(self._fine_t @ _gather(mid, xs, channel, row).T).max(axis=0)
                 np.maximum.at(peak, channel, out)
             return peak.astype(np.float64)[None, :]
-        z = np.empty((channels, 2 * span), dtype=np.float32)
-        z[:, 0::2] = xs
-        z[:, 1::2] = mid
-        width = _FINE_GROUP + _FINE_TAPS - 1
-        wins = _windows(z[:, 2 * _CONTEXT - (_FINE_TAPS // 2 - 1):], rows, width, _FINE_GROUP)
+        wins = _fine_windows(mid, xs, rows)
+        width = wins.shape[-1]
         if self.peak_only:
             peak = pairs[:, _CONTEXT:_CONTEXT + count].max(axis=1)
             out = (self._fine_t @ wins.reshape(channels * rows, width).T).reshape(-1, channels, rows)
@@ -335,9 +394,53 @@ class PeakInterpolator:
             per_row[channel, row] = np.maximum(per_row[channel, row], self._fine_peaks(wins[channel, row]).T)
         return envelope[:, :count].astype(np.float64)
 
+    def _chunk_overs(self, window, count, level, cut):
+        """Per frame of ``window`` after its first _BEFORE (``count``): does the envelope of a
+        channel exceed ``level``? The rows :meth:`_chunk` computes for the floor ``level``,
+        through the same products; ``cut``: the least float32 above ``level``."""
+        channels = self.channels
+        per = _FINE_GROUP // 2
+        mid, xs, pairs, rows = self._first_stage(window, count)
+        bound = self._bounds(pairs, rows)
+        over = np.zeros(rows * per, dtype=bool)
+        np.any(pairs[:, _CONTEXT:_CONTEXT + rows * per] >= cut, axis=0, out=over)
+        keep = bound >= np.float64(level) * (1.0 - 1e-4)     # in float64, as _chunk's floor
+        channel, row = np.nonzero(keep)
+        if channel.size > channels * rows // 2:        # as in _chunk: every row, one product
+            wins = _fine_windows(mid, xs, rows)
+            peaks = self._fine_peaks(wins.reshape(channels * rows, wins.shape[-1]))
+            over |= (peaks >= cut).reshape(per, channels, rows).any(axis=1).T.reshape(-1)
+        elif channel.size:
+            hit = (self._fine_peaks(_gather(mid, xs, channel, row)) >= cut).T   # kept rows x per
+            r, j = np.nonzero(hit)
+            over[row[r] * per + j] = True
+        return over[:count]
+
     def _fine_peaks(self, wins):
         """Per-frame peak (frames per row x rows) of the second stage's outputs of ``wins``."""
         out = self._fine_t @ wins.T                 # (7 phases * 8 positions) x rows
         np.abs(out, out=out)
         peak = np.maximum.reduce(out.reshape(_FINE_PHASES - 1, _FINE_GROUP, -1), axis=0)
         return np.maximum(peak[0::2], peak[1::2])
+
+
+def _fine_windows(mid, xs, rows):
+    """The second stage's input windows of every row (channels x rows x 15, a strided view of
+    the 2x stream: inputs and half-way points interleaved)."""
+    channels, span = xs.shape
+    z = np.empty((channels, 2 * span), dtype=np.float32)
+    z[:, 0::2] = xs
+    z[:, 1::2] = mid
+    width = _FINE_GROUP + _FINE_TAPS - 1
+    return _windows(z[:, 2 * _CONTEXT - (_FINE_TAPS // 2 - 1):], rows, width, _FINE_GROUP)
+
+
+def _gather(mid, xs, channel, row):
+    """The second stage's input windows of the rows ``(channel, row)`` only (rows x 15),
+    gathered from where the inputs and the half-way points are: the values of
+    :func:`_fine_windows`, without interleaving the whole chunk."""
+    at = (2 * _CONTEXT - (_FINE_TAPS // 2 - 1) + _FINE_GROUP * row)[:, None] \
+        + np.arange(_FINE_GROUP + _FINE_TAPS - 1)
+    half, odd = at >> 1, (at & 1).astype(bool)
+    lanes = channel[:, None]
+    return np.where(odd, mid[lanes, half], xs[lanes, half])
