@@ -75,9 +75,11 @@ class TruePeakOvers:
 
     Notes
     -----
-    The interpolator skips the rows that cannot reach the threshold (exact), so programme
-    material well below full scale costs little more than reading it. Frames come back in
-    order, a chunk (8192 frames) behind the input; :meth:`finish` gives the rest.
+    The interpolator's overs mode (:meth:`~webapp.dsp.oversample.PeakInterpolator.overs`)
+    skips the chunks and the rows that cannot reach the threshold (exact) and keeps no
+    envelope, so programme material well below full scale costs little more than reading it.
+    Frames come back in order, a chunk (8192 frames) behind the input; :meth:`finish` gives
+    the rest.
     """
 
     def __init__(self, *, channels, threshold_dbtp=0.0):
