@@ -15,6 +15,7 @@ from threadpoolctl import threadpool_limits
 
 from webapp import media
 from webapp.dsp.loudness import TruePeakMeter
+from webapp.dsp.overs import TruePeakOvers
 from webapp.dsp.oversample import CHUNK_FRAMES, EDGE_FRAMES, PeakInterpolator
 from webapp.overview import _PeakAndOvers, overview_and_meters
 from webapp.pipeline import BLOCK_FRAMES, measure_file
@@ -139,6 +140,9 @@ def test_the_search_from_the_meters_crossing_finds_every_over_for_any_blocks(rng
     expected = _plain_overs(x, threshold_dbtp)
     assert expected.size > 0 and expected.min() > 100000
     np.testing.assert_array_equal(found, expected)
+    # and the search of the whole file, whose chunks the stage's are from where it starts
+    whole = TruePeakOvers(channels=2, threshold_dbtp=threshold_dbtp)
+    np.testing.assert_array_equal(found, np.concatenate([whole.process(x), whole.finish()]))
 
 
 @pytest.mark.parametrize("block", [BLOCK_FRAMES, 10000])

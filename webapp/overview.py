@@ -208,14 +208,17 @@ class _PeakAndOvers:
     """The true-peak meter fed block by block, and the search for the overs from where its
     running reading first goes over the threshold.
 
-    While the meter's running peak stays at or under the threshold, no frame it has measured
-    is an over (:meth:`webapp.dsp.loudness.TruePeakMeter.running`): only the input a search
-    would need from there is kept (the frames from REACH_FRAMES before the first frame not
-    measured, a chunk or two). When it goes over, a :class:`~webapp.dsp.overs.TruePeakOvers`
-    starts on the frames not known to stay under, and is then fed every block. Its stream
-    starts on a chunk boundary of the file (:data:`~webapp.dsp.oversample.CHUNK_FRAMES`), so
-    its products are those of a search of the whole file, and the overs it finds from the
-    first frame not measured on are the same.
+    While the meter's running peak stays under the threshold, no frame it has measured is an
+    over (:meth:`webapp.dsp.loudness.TruePeakMeter.running`): only the input a search would
+    need from there is kept (the frames from REACH_FRAMES before the first frame not measured,
+    a chunk or two). When it comes within 1e-4 of the threshold (the margin the interpolator
+    gives its bounds: the meter's products, grouped otherwise, may differ from a search's in
+    their last bits), a :class:`~webapp.dsp.overs.TruePeakOvers` starts on the frames not
+    known to stay under, and is then fed every block. Its stream starts a chunk before the
+    first frame not measured, on a chunk boundary of the file
+    (:data:`~webapp.dsp.oversample.CHUNK_FRAMES`): from that frame on, its chunks are those of
+    a search of the whole file, the same products of the same input, so the overs it finds
+    there are the same to the bit.
     """
 
     def __init__(self, meter, channels, threshold_dbtp):
@@ -235,7 +238,7 @@ class _PeakAndOvers:
             return
         self.kept.append(block)
         now, peak = self.meter.running()
-        if peak > self.level:
+        if peak > self.level * (1.0 - 1e-4):
             self._start(measured)
         else:
             first = _search_start(now)
@@ -266,8 +269,9 @@ class _PeakAndOvers:
 
 
 def _search_start(measured):
-    """Where a search of the frames from ``measured`` on starts: REACH_FRAMES before it (the
-    input its envelope depends on), down to a chunk boundary of the file."""
+    """Where a search of the frames from ``measured`` (a chunk boundary of the meter's) on
+    starts: at least REACH_FRAMES before it (the input their envelope depends on), on a chunk
+    boundary of the file, so that the chunk from ``measured`` on has its whole input."""
     return max(0, (measured - REACH_FRAMES) // CHUNK_FRAMES * CHUNK_FRAMES)
 
 
