@@ -583,14 +583,9 @@ class TruePeakMeter:
             self._true = np.maximum(self._true, envelope.max(axis=0))
 
     def running(self):
-        """``(frames, peak)``: no frame before ``frames`` has a true-peak envelope above
-        ``peak`` (linear, the loudest channel's); the frames from ``frames`` on are still to
-        be measured (the interpolator works a chunk behind the input, see
-        :attr:`webapp.dsp.oversample.PeakInterpolator.covered`).
-
-        Every value that can reach the running peak is computed (only rows and chunks whose
-        bound stays under it are skipped), so the peak of the frames measured is exact: a
-        caller looking for frames over a level it has not reached can skip those frames."""
+        """``(frames, peak)``: the frames before ``frames`` are measured (the interpolator
+        works a chunk behind the input) and their envelope's peak, exact (every value that
+        can reach it is computed), is ``peak`` (linear, the loudest channel's)."""
         return self._poly.covered, float(self._true.max())
 
     def result(self):
