@@ -32,6 +32,19 @@ def _plain_overs(x, threshold_dbtp=0.0):
     return np.unique(np.clip(over, 0, x.shape[0] - 1))
 
 
+def _stage_overs(x, block, threshold_dbtp=0.0):
+    """The overs the one read's true-peak stage finds in ``x`` fed in blocks of ``block``."""
+    found = []
+    stage = _PeakAndOvers(TruePeakMeter(rate_hz=RATE, channels=x.shape[1]), x.shape[1],
+                          threshold_dbtp, found.append)
+    for a in range(0, x.shape[0], block):
+        stage.take(x[a:a + block])
+    stage.finish()
+    frames = np.concatenate(found)
+    assert np.all(np.diff(frames) > 0)
+    return frames
+
+
 def _markers(frames, n, columns):
     """The overview's markers of ``frames`` (column c holds frames c * n // columns on)."""
     edges = np.arange(columns + 1) * n // columns
@@ -133,10 +146,7 @@ def test_the_search_from_the_meters_crossing_finds_every_over_for_any_blocks(rng
     # envelope; at -2 dBTP the loud noise goes over early, at 0 dBTP the first burst is late
     x = _programme(rng, PLACES["late first"] + [-20], loud=True)
     x[:140000] *= 0.5
-    stage = _PeakAndOvers(TruePeakMeter(rate_hz=RATE, channels=2), 2, threshold_dbtp)
-    for a in range(0, x.shape[0], block):
-        stage.take(x[a:a + block])
-    found = stage.overs()
+    found = _stage_overs(x, block, threshold_dbtp)
     expected = _plain_overs(x, threshold_dbtp)
     assert expected.size > 0 and expected.min() > 100000
     np.testing.assert_array_equal(found, expected)
@@ -164,7 +174,4 @@ def test_the_first_overs_just_after_the_measured_frames_see_the_input_before_the
     x[n, 1] = burst
     expected = _plain_overs(x)
     assert expected.size > 0 and edge - EDGE_FRAMES <= expected.min() <= edge + shift + 1
-    stage = _PeakAndOvers(TruePeakMeter(rate_hz=RATE, channels=2), 2, 0.0)
-    for i in range(0, x.shape[0], block):
-        stage.take(x[i:i + block])
-    np.testing.assert_array_equal(stage.overs(), expected)
+    np.testing.assert_array_equal(_stage_overs(x, block), expected)

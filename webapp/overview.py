@@ -110,9 +110,6 @@ class _Columns:
         self.high[cols] = np.maximum(self.high[cols], hi)
         self.pos += m
 
-    def add_overs(self, frames):
-        self.overs.add(frames, self.column_of(frames))
-
     def figures(self, rate, loud):
         return dict(time_s=(self.edges[:-1] / rate).round(4).tolist(),
                     min=np.round(self.low, 5).tolist(), max=np.round(self.high, 5).tolist(),
@@ -177,7 +174,11 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
         raise ParameterError("the recording has no frames to draw", "recording_id")
     grid = _Columns(_columns(columns, frames), frames)
     meter = Meters(rate, info.channels)
-    peak = _PeakAndOvers(meter.peak, info.channels, over_threshold_dbtp)
+    # the overs' markers fill as they are found (memory stays flat, however many there are),
+    # and are shown only when the meter reads over the threshold
+    overs = _Markers(grid.n)
+    peak = _PeakAndOvers(meter.peak, info.channels, over_threshold_dbtp,
+                         lambda frames: overs.add(frames, grid.column_of(frames)))
     # the meters run on threads of their own beside the reader and the columns (read_blocks
     # checks every sample, so they need not); one BLAS thread for the interpolator's small
     # products (more only fight over the cores)
@@ -195,7 +196,8 @@ def overview_and_meters(path, *, columns=DEFAULT_COLUMNS,
         meters = meter.result()
         reading = meters["true_peak_dbtp"]
         if reading is not None and reading > over_threshold_dbtp:
-            grid.add_overs(peak.overs())
+            peak.finish()
+            grid.overs = overs
     figures = dict(
         rate_hz=rate, channels=info.channels, frames=frames, duration_s=frames / rate,
         columns=grid.n, **grid.figures(rate, meter.loud),
@@ -221,13 +223,13 @@ class _PeakAndOvers:
     there are the same to the bit.
     """
 
-    def __init__(self, meter, channels, threshold_dbtp):
+    def __init__(self, meter, channels, threshold_dbtp, found):
         self.meter = meter
         self.channels, self.threshold_dbtp = channels, threshold_dbtp
         self.level = 10.0 ** (threshold_dbtp / 20.0)
         self.kept, self.kept_at = [], 0            # the input from frame kept_at on
         self.finder = None
-        self.found = []
+        self.found = found       # called with the overs as found: frame indices, ascending
 
     def take(self, block):
         """Measure ``block``; search it too once the reading has gone over."""
@@ -245,14 +247,12 @@ class _PeakAndOvers:
             while self.kept and self.kept_at + self.kept[0].shape[0] <= first:
                 self.kept_at += self.kept.pop(0).shape[0]
 
-    def overs(self):
-        """Frame indices (int64, ascending) of every over; the search ends here. When the
-        reading went over only in the meter's last chunks (or the ringing after the last
-        frame), those are searched now."""
+    def finish(self):
+        """Search the rest (the search ends here). When the reading went over only in the
+        meter's last chunks (or the ringing after the last frame), those are searched now."""
         if self.finder is None:
             self._start(self.meter.running()[0])
         self._keep(self.finder.finish())
-        return np.concatenate(self.found)
 
     def _start(self, measured):
         """Search from frame ``measured`` on (no frame before it is an over)."""
@@ -265,7 +265,10 @@ class _PeakAndOvers:
 
     def _keep(self, frames):
         frames = frames + self.offset
-        self.found.append(frames[frames >= self.wanted])
+        frames = frames[frames >= self.wanted]
+        if frames.size:
+            self.found(frames)
+            self.wanted = frames[-1] + 1      # each frame once, in order, whatever comes
 
 
 def _search_start(measured):
