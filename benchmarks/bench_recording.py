@@ -373,6 +373,9 @@ def _page_rows(runs, ref_w, target):
                          unit="s", reference="reading the file once", reference_value=ref_w,
                          **({"target": target} if target else {})))
         cpu = r["cpu"]
+        rows.append(dict(name=f"  run {i + 1}: upload's body sent {r.get('sent', 0):.3f} s, "
+                              f"answered {r['loaded']:.3f} s; after it, all shown in",
+                         value=r["ready"] - r["loaded"], unit="s"))
         rows.append(dict(name=f"  run {i + 1}: CPU, server's process {cpu['server']:.2f} s, "
                               f"browser {cpu['browser']:.2f} s, other processes",
                          value=cpu["others"], unit="s"))
