@@ -19,17 +19,16 @@ as in the pipeline; the reference of every row is the conversion 44.1 -> 48 kHz 
 Figures only; nothing here asserts a time. The helpers are bench_meters.py's.
 """
 
-import argparse
 import os
 import sys
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
-from bench_meters import RATE_HZ, SOURCE_RATE_HZ, best_of, conversion, programme  # noqa: E402
+from bench_meters import (  # noqa: E402
+    RATE_HZ, SOURCE_RATE_HZ, best_of, conversion, print_figures, programme, run_figures)
 from webapp.dsp.dither import Quantizer, noise_transfer_taps  # noqa: E402
 from webapp.dsp.shaping import shape_sequential  # noqa: E402
 from webapp.dsp.limiter import TruePeakLimiter  # noqa: E402
@@ -106,20 +105,8 @@ def shaped_rows(x, per_hour):
 
 
 def main(argv=None):
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--seconds", type=float, default=20.0)
-    parser.add_argument("--block", type=int, default=65536)
-    args = parser.parse_args(argv)
-    with threadpool_limits(limits=1, user_api="blas"):
-        rows = figures(args.seconds, args.block)
-    return dict(title=f"limiter and dither, stereo {RATE_HZ} Hz, {args.seconds:g} s of audio, blocks "
-                      f"of {args.block} frames, BLAS 1 thread, seconds per hour of audio",
-                load_average=list(os.getloadavg()), figures=rows)
+    return run_figures(argv, __doc__.splitlines()[0], "limiter and dither", figures)
 
 
 if __name__ == "__main__":
-    result = main()
-    print(result["title"], "| load average", " ".join(f"{v:.2f}" for v in result["load_average"]))
-    for r in result["figures"]:
-        print(f"{r['name']:44s}  {r['value']:8.2f}   | {r['reference']}: {r['reference_value']:.2f} "
-              f"(x{r['ratio']:.2f})")
+    print_figures(main())
