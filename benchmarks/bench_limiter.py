@@ -12,25 +12,35 @@ as in the pipeline; the reference of every row is the conversion 44.1 -> 48 kHz 
   is (it seldom needs to), and on a full-scale 19 kHz tone (every frame over the ceiling);
 * the whole delivery chain as the pipeline runs it for a limited delivery: gain, limiter and
   16-bit quantiser with TPDF;
-* the 16-bit quantiser with TPDF and with shaped dither (the shaped one's error feedback is a
-  per-sample loop: the rounding inside the loop is what keeps it from a linear filter).
+* the 16-bit quantiser with TPDF, and with shaped dither in the pipeline's blocks for it beside
+  the plain per-sample error-feedback loop whose codes it equals (the rounding inside the loop
+  is what keeps it from a linear filter; ``webapp.dsp.shaping`` runs many stretches at once).
 
 Figures only; nothing here asserts a time. The helpers are bench_meters.py's.
 """
 
-import argparse
 import os
 import sys
 
 import numpy as np
-from threadpoolctl import threadpool_limits
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
-from bench_meters import RATE_HZ, SOURCE_RATE_HZ, best_of, conversion, limited, programme  # noqa: E402
-from webapp.dsp.dither import Quantizer  # noqa: E402
+from bench_meters import (  # noqa: E402
+    RATE_HZ, SOURCE_RATE_HZ, best_of, conversion, print_figures, programme, run_figures)
+from webapp.dsp.dither import Quantizer, noise_transfer_taps  # noqa: E402
+from webapp.dsp.shaping import shape_sequential  # noqa: E402
 from webapp.dsp.limiter import TruePeakLimiter  # noqa: E402
+
+
+def limited(x, block):
+    def run():
+        limiter = TruePeakLimiter(rate_hz=RATE_HZ, channels=2, ceiling_dbtp=-1.0)
+        for i in range(0, x.shape[0], block):
+            limiter.process(x[i:i + block])
+        limiter.flush()
+    return run
 
 
 def chain(x, block):
@@ -64,28 +74,39 @@ def figures(seconds, block):
         row("gain + limiter + 16-bit TPDF quantiser", best_of(3, chain(x, block)) * per_hour),
     ]
     short = x[: int(RATE_HZ * min(seconds, 5.0))]
-    for dither in ("tpdf", "shaped"):
-        quantizer = Quantizer(bits="16", dither=dither, channels=2, rate_hz=RATE_HZ)
-        spent = best_of(1, lambda q=quantizer: q.process(short))
-        rows.append(row(f"16-bit quantiser, dither={dither}", spent * 3600.0 * RATE_HZ / short.shape[0]))
+    quantizer = Quantizer(bits="16", dither="tpdf", channels=2, rate_hz=RATE_HZ)
+    spent = best_of(1, lambda: quantizer.process(short))
+    rows.append(row("16-bit quantiser, dither=tpdf", spent * 3600.0 * RATE_HZ / short.shape[0]))
+    rows.extend(shaped_rows(x, per_hour))
     return rows
 
 
+def shaped_rows(x, per_hour):
+    """Shaped dither in the blocks the pipeline gives it (``Quantizer.preferred_frames``) beside
+    the plain per-sample loop whose codes it equals, timed on the first 2 s."""
+    quantizer = Quantizer(bits="16", dither="shaped", channels=2, rate_hz=RATE_HZ)
+    size = quantizer.preferred_frames
+
+    def lanes():
+        for i in range(0, x.shape[0], size):
+            quantizer.process(x[i:i + size])
+    spent = best_of(1, lanes) * per_hour
+    piece = x[: 2 * RATE_HZ] * 32768.0
+    tpdf = np.zeros_like(piece)
+    feedback = tuple(-noise_transfer_taps(RATE_HZ)[1:])
+
+    def plain():
+        for c in range(piece.shape[1]):
+            shape_sequential(piece[:, c], tpdf[:, c], [0.0] * 9, feedback, -32768, 32767)
+    loop = best_of(1, plain) * 3600.0 * RATE_HZ / piece.shape[0]
+    reference = "the plain per-sample loop (shape_sequential), same codes"
+    return [dict(name=f"16-bit quantiser, dither=shaped, blocks of {size} frames", value=spent,
+                 unit="s/hour", reference=reference, reference_value=loop, ratio=spent / loop)]
+
+
 def main(argv=None):
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--seconds", type=float, default=20.0)
-    parser.add_argument("--block", type=int, default=65536)
-    args = parser.parse_args(argv)
-    with threadpool_limits(limits=1, user_api="blas"):
-        rows = figures(args.seconds, args.block)
-    return dict(title=f"limiter and dither, stereo {RATE_HZ} Hz, {args.seconds:g} s of audio, blocks "
-                      f"of {args.block} frames, BLAS 1 thread, seconds per hour of audio",
-                load_average=list(os.getloadavg()), figures=rows)
+    return run_figures(argv, __doc__.splitlines()[0], "limiter and dither", figures)
 
 
 if __name__ == "__main__":
-    result = main()
-    print(result["title"], "| load average", " ".join(f"{v:.2f}" for v in result["load_average"]))
-    for r in result["figures"]:
-        print(f"{r['name']:44s}  {r['value']:8.2f}   | {r['reference']}: {r['reference_value']:.2f} "
-              f"(x{r['ratio']:.2f})")
+    print_figures(main())

@@ -131,22 +131,32 @@ def accuracy_row():
                 target="< 0.1 dB")
 
 
-def main(argv=None):
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+def run_figures(argv, description, what, figures_of):
+    """The entry point both this bench and bench_limiter.py share: ``--seconds`` of stereo at
+    48 kHz in ``--block``-frame blocks, BLAS held to one thread as in the pipeline; returns the
+    runner's dict."""
+    parser = argparse.ArgumentParser(description=description)
     parser.add_argument("--seconds", type=float, default=20.0)
     parser.add_argument("--block", type=int, default=65536)
     args = parser.parse_args(argv)
     with threadpool_limits(limits=1, user_api="blas"):
-        rows = figures(args.seconds, args.block)
-    return dict(title=f"meters, stereo {RATE_HZ} Hz, {args.seconds:g} s of "
-                      f"audio, blocks of {args.block} frames, BLAS 1 thread, seconds per hour of audio",
-                figures=rows)
+        rows = figures_of(args.seconds, args.block)
+    return dict(title=f"{what}, stereo {RATE_HZ} Hz, {args.seconds:g} s of audio, blocks of "
+                      f"{args.block} frames, BLAS 1 thread, seconds per hour of audio",
+                load_average=list(os.getloadavg()), figures=rows)
+
+
+def print_figures(result):
+    print(result["title"], "| load average", " ".join(f"{v:.2f}" for v in result["load_average"]))
+    for r in result["figures"]:
+        ratio = f" (x{r['ratio']:.2f})" if "ratio" in r else ""
+        print(f"{r['name']:56s}  {r['value']:8.3f} {r['unit']:6s} | {r['reference']}: "
+              f"{r['reference_value']:.2f}{ratio}")
+
+
+def main(argv=None):
+    return run_figures(argv, __doc__.splitlines()[0], "meters", figures)
 
 
 if __name__ == "__main__":
-    result = main()
-    print(result["title"])
-    for r in result["figures"]:
-        ratio = f" (x{r['ratio']:.2f})" if "ratio" in r else ""
-        print(f"{r['name']:52s}  {r['value']:8.3f} {r['unit']:6s} | {r['reference']}: "
-              f"{r['reference_value']:.2f}{ratio}")
+    print_figures(main())

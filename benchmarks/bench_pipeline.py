@@ -4,6 +4,7 @@
     python benchmarks/bench_pipeline.py --minutes 60      # the hour of the speed figures
     python benchmarks/bench_pipeline.py --memory 2 10     # rateferry's peak RSS against duration
     python benchmarks/bench_pipeline.py --stages          # CPU seconds of each pipeline thread
+    python benchmarks/bench_pipeline.py --dither shaped   # rateferry with shaped dither
 
 The source is N minutes of speech-like stereo (noise through two resonances under a syllable
 envelope with pauses), 44.1 kHz 16-bit FLAC; the target 48 kHz 16-bit FLAC with TPDF dither.
@@ -120,14 +121,14 @@ def _measure(cmd):
     return dict(seconds=seconds, peak_rss_mb=rss_mb, cpu_s=cpu)
 
 
-def bench_pipeline(minutes=2.0, *, keep_dir=None):
+def bench_pipeline(minutes=2.0, *, keep_dir=None, dither="tpdf"):
     py = sys.executable
     with tempfile.TemporaryDirectory(dir=keep_dir) as tmp:
         src = os.path.join(tmp, "speech.flac")
         make_source(src, minutes)
         floor = _measure([py, "-c", _IO_FLOOR, src, os.path.join(tmp, "floor.flac")])
         ours = _measure([py, "-c", _RATEFERRY, "convert", src, os.path.join(tmp, "ours.flac"),
-                         "--to", str(RATE_OUT), "--bits", "16", "--dither", "tpdf", "--quiet"])
+                         "--to", str(RATE_OUT), "--bits", "16", "--dither", dither, "--quiet"])
         plain = _measure([py, "-c", _PLAIN_SCIPY, src, os.path.join(tmp, "plain.flac")])
     audio_s = minutes * 60
     for r in (floor, ours, plain):
@@ -138,7 +139,7 @@ def bench_pipeline(minutes=2.0, *, keep_dir=None):
                 load_average=list(os.getloadavg()))
 
 
-def memory_vs_duration(minutes_list):
+def memory_vs_duration(minutes_list, dither="tpdf"):
     rows = []
     with tempfile.TemporaryDirectory() as tmp:
         for m in minutes_list:
@@ -146,13 +147,13 @@ def memory_vs_duration(minutes_list):
             make_source(src, m)
             r = _measure([sys.executable, "-c", _RATEFERRY, "convert", src,
                           os.path.join(tmp, f"out_{m}.flac"), "--to", str(RATE_OUT),
-                          "--bits", "16", "--dither", "tpdf", "--quiet"])
+                          "--bits", "16", "--dither", dither, "--quiet"])
             rows.append(dict(minutes=m, **r))
             os.remove(src)
     return rows
 
 
-def stage_seconds(minutes):
+def stage_seconds(minutes, dither="tpdf"):
     """CPU seconds of each thread of one ``rateferry convert`` run in this process: the stages
     (:class:`webapp.threads.Background`), the reader (:func:`webapp.threads.prefetch`) and the
     main thread (the converter). Timed with ``time.thread_time`` around each item."""
@@ -185,7 +186,7 @@ def stage_seconds(minutes):
             make_source(src, minutes)
             t0, c0, m0 = time.perf_counter(), time.process_time(), time.thread_time()
             cli_main(["convert", src, os.path.join(tmp, "out.flac"), "--to", str(RATE_OUT),
-                      "--bits", "16", "--dither", "tpdf", "--silent"])
+                      "--bits", "16", "--dither", dither, "--silent"])
             wall, total = time.perf_counter() - t0, time.process_time() - c0
             cpu["main thread (converter)"] = time.thread_time() - m0
     finally:
@@ -223,17 +224,19 @@ def main(argv=None):
                     help="durations in minutes for rateferry's peak RSS against duration")
     ap.add_argument("--tmp", default=None, help="folder for the temporary files")
     ap.add_argument("--json", action="store_true", help="print the result as JSON")
+    ap.add_argument("--dither", choices=("tpdf", "shaped"), default="tpdf",
+                    help="rateferry's dither (plain scipy always adds TPDF), default tpdf")
     ap.add_argument("--stages", action="store_true",
                     help="CPU seconds of each pipeline thread, one in-process run")
     args = ap.parse_args(argv)
     if args.stages:
-        return stage_seconds(args.minutes)
+        return stage_seconds(args.minutes, args.dither)
     if args.memory:
         return dict(title="rateferry convert: peak RSS against duration",
-                    memory=memory_vs_duration(args.memory))
-    p = bench_pipeline(args.minutes, keep_dir=args.tmp)
+                    memory=memory_vs_duration(args.memory, args.dither))
+    p = bench_pipeline(args.minutes, keep_dir=args.tmp, dither=args.dither)
     title = (f"{args.minutes:g} min speech-like stereo 44.1 kHz 16-bit FLAC -> 48 kHz 16-bit "
-             f"FLAC, TPDF; each in its own process")
+             f"FLAC, rateferry with {args.dither} dither (plain scipy TPDF); each in its own process")
     return dict(title=title, figures=figures(p), **p)
 
 

@@ -16,6 +16,7 @@ from scipy import signal
 import pytest
 import soundfile as sf
 
+from webapp import pipeline
 from webapp.cli import main
 from webapp.dsp.errors import AudioFileError
 from webapp.dsp.loudness import integrated_loudness, true_peak
@@ -251,3 +252,16 @@ def test_targets_below_the_loudness_meters_range_still_convert(tmp_audio, tmp_pa
     assert r.output_meters["true_peak_dbtp"] == pytest.approx(reference, abs=0.1)
     assert r.output_meters["true_peak_dbtp"] == pytest.approx(-12.04, abs=0.1)
     assert r.source_meters["integrated_lufs"] is not None
+
+
+def test_batch_gathers_blocks_in_order_and_gives_the_rest_at_the_end():
+    batch = pipeline._Batch(10)
+    blocks = [np.full((4, 2), k, dtype=np.float64) for k in range(4)]
+    assert batch.take(blocks[0]) is None
+    assert batch.take(blocks[1]) is None
+    out = batch.take(blocks[2])
+    np.testing.assert_array_equal(out, np.concatenate(blocks[:3]))
+    assert batch.take(blocks[3]) is None
+    np.testing.assert_array_equal(batch.take(None), blocks[3])
+    assert batch.take(None) is None
+    assert pipeline._Batch(None).take(blocks[1]) is blocks[1]

@@ -65,3 +65,59 @@ def test_a_plain_limit_per_user_gives_the_threads_back_too_early():
         return                              # a one-core machine: nothing to give back
     assert seen["both inside"] == [1]
     assert seen["first left"] == seen["before"]
+
+
+# The page's server: the main thread measures the demo at start (and lives on); every later user
+# is a request's thread. Each alone must get one BLAS thread, and the last one out of two
+# overlapping users (not the one that came first, which is still alive) must give them back.
+_LATER_THREADS = r"""
+import json, threading
+from threadpoolctl import threadpool_info
+import webapp.pipeline  # loads numpy's and scipy's BLAS as a conversion does
+from webapp.threads import one_blas_thread
+
+def blas():
+    return sorted({lib["num_threads"] for lib in threadpool_info() if lib["user_api"] == "blas"})
+
+seen = {"before": blas()}
+with one_blas_thread():                # the main thread first, as at the server's start
+    pass
+seen["main left"] = blas()
+
+def alone():
+    with one_blas_thread():
+        seen["a request alone"] = blas()
+
+t = threading.Thread(target=alone)
+t.start()
+t.join(10)
+seen["request left"] = blas()
+
+inside, main_left = threading.Event(), threading.Event()
+
+def second():
+    with one_blas_thread():
+        inside.set()
+        main_left.wait(10)
+        seen["main left, request inside"] = blas()
+
+with one_blas_thread():
+    t = threading.Thread(target=second)
+    t.start()
+    inside.wait(10)
+main_left.set()
+t.join(10)
+seen["after"] = blas()
+print(json.dumps(seen))
+"""
+
+
+def test_a_request_thread_gets_the_limit_after_the_main_thread_has_used_it():
+    out = subprocess.run([sys.executable, "-c", _LATER_THREADS], capture_output=True, text=True,
+                         timeout=120, check=True)
+    seen = json.loads(out.stdout)
+    assert seen["main left"] == seen["before"]
+    assert seen["a request alone"] == [1]
+    assert seen["request left"] == seen["before"]
+    assert seen["main left, request inside"] == [1]
+    assert seen["after"] == seen["before"]        # the last one out gave the threads back

@@ -72,6 +72,7 @@ class DesignCache:
         self._weights = {}
         self._lock = threading.Lock()
         self._pending = {}
+        self._adopted = {}           # key -> a future computing its value elsewhere
         self._executor = ThreadPoolExecutor(max_workers=2, thread_name_prefix="rateferry-design")
         self._rest_timer = None
 
@@ -85,6 +86,13 @@ class DesignCache:
             if k in self._data:
                 self._data.move_to_end(k)
                 return self._data[k], True
+            ahead = self._adopted.get(k)
+        if ahead is not None:
+            try:
+                return ahead.result(), True
+            except Exception:        # failed or cancelled: computed here, as if never started
+                pass
+        with self._lock:
             lock = self._pending.setdefault(k, threading.Lock())
         with lock:
             with self._lock:
@@ -180,6 +188,28 @@ class DesignCache:
     def memo(self, kind, key, compute):
         """Cache any other derived value (spectra, audits) under ``(kind,) + key``."""
         return self._memo(kind, key, compute)
+
+    def adopt(self, kind, key, future):
+        """Keep what ``future`` (work started elsewhere, e.g. the spectra of an upload computed
+        beside its analysis) gives under ``(kind,) + key``: a :meth:`memo` of that key
+        meanwhile waits for it instead of computing it a second time (and answers "cached").
+        A future that fails or is cancelled leaves nothing: the memo computes the value itself.
+        """
+        k = (kind,) + key
+        with self._lock:
+            self._adopted[k] = future
+        future.add_done_callback(lambda f: self._settle(k, f))
+
+    def _settle(self, k, future):
+        with self._lock:
+            if self._adopted.get(k) is not future:
+                return
+            del self._adopted[k]
+            if future.cancelled() or future.exception() is not None or k in self._data:
+                return
+            self._data[k] = future.result()
+            self._weights[k] = 0
+            self._evict(k[0])
 
     def put(self, kind, key, value):
         """Keep a value computed elsewhere (an overview from the upload's analysis) under

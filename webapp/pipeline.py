@@ -297,10 +297,24 @@ def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunk
     out_meters = Meters(job.fs_out, channels)
     conv = _converter(job)
 
+    batch = _Batch(quant.preferred_frames if quant is not None else None)
+
     def quantize(y):
+        # y None: the stream is over (what the batch holds goes out)
+        y = batch.take(y)
+        if y is None:
+            return
         codes = quant.process(y)
-        write_stage.submit(codes)
-        meter_stage.submit(codes.astype(np.float64) / scale)
+        # a batch goes on in the pipeline's own block size: the writer and the meters keep
+        # their memory whatever the quantiser works in
+        for i in range(0, codes.shape[0], job.block_frames):
+            part = codes[i:i + job.block_frames]
+            write_stage.submit(part)
+            meter_stage.submit(part.astype(np.float64) / scale)
+
+    def finish():
+        if quant_stage is not None:
+            quant_stage.submit(None)
 
     def emit(y):
         if y.shape[0] == 0:
@@ -313,6 +327,8 @@ def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunk
 
     def limit(y):
         emit(limiter.flush() if y is None else limiter.process(y))
+        if y is None:
+            finish()
 
     def deliver(y):
         if y.shape[0] == 0:
@@ -348,13 +364,40 @@ def _write_pass(job, attempt, *, source_meters, cancel, progress, comment, chunk
             _check_cancel(cancel)
             deliver(conv.flush())
             if limit_stage is not None:
-                limit_stage.submit(None)
+                limit_stage.submit(None)        # the limiter's last frames, then finish()
+            else:
+                finish()
     except BaseException:
         writer.abort()
         raise
     writer.commit()
     return dict(frames_read=frames_read, frames_out=conv.frames_out, quant=quant,
                 limiter=limiter, out_meters=out_meters)
+
+
+class _Batch:
+    """Blocks gathered up to ``frames`` (None: each block as it comes) for a stage that works
+    faster on large blocks (the shaped quantiser); the order and the samples are unchanged."""
+
+    def __init__(self, frames):
+        self.frames = frames
+        self._parts = []
+        self._held = 0
+
+    def take(self, block):
+        """Add ``block`` (None: the stream is over); returns a block to process, or None."""
+        if self.frames is None:
+            return block
+        if block is not None:
+            self._parts.append(block)
+            self._held += block.shape[0]
+            if self._held < self.frames:
+                return None
+        if not self._parts:
+            return None
+        out = self._parts[0] if len(self._parts) == 1 else np.concatenate(self._parts)
+        self._parts, self._held = [], 0
+        return out
 
 
 def _execute(job, *, progress, cancel, tags_comment):

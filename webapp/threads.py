@@ -6,7 +6,7 @@ import contextlib
 import queue
 import threading
 
-from threadpoolctl import threadpool_limits
+from threadpoolctl import OpenBLASController, threadpool_limits
 
 __all__ = ["Background", "Stages", "prefetch", "one_blas_thread"]
 
@@ -154,7 +154,7 @@ def one_blas_thread():
     global _blas_users, _blas_limiter
     with _blas_lock:
         if _blas_users == 0:
-            _blas_limiter = threadpool_limits(limits=1, user_api="blas")
+            _blas_limiter = _as_any_thread(lambda: threadpool_limits(limits=1, user_api="blas"))
         _blas_users += 1
     try:
         yield
@@ -162,5 +162,26 @@ def one_blas_thread():
         with _blas_lock:
             _blas_users -= 1
             if _blas_users == 0:
-                _blas_limiter.restore_original_limits()
+                _as_any_thread(_blas_limiter.restore_original_limits)
                 _blas_limiter = None
+
+
+def _as_any_thread(change):
+    """Make a change of OpenBLAS's thread count from whichever thread this is.
+
+    threadpoolctl (3.8) lets only one "controlling" thread change OpenBLAS's process-wide
+    pool, the first to change it while no other is alive, and silently ignores any other: once
+    the main thread has measured a file, a request's limit on its own thread did nothing, and
+    the analyses and conversions of the page's requests ran on two BLAS threads (several of
+    them calling BLAS at once fought over its one pool: an upload's analysis took 10 times as
+    long). ``_blas_lock`` orders our changes, so each is made by the thread that makes it;
+    no thread is left in control afterwards.
+    """
+    release = getattr(OpenBLASController, "clear_controlling_thread", None)
+    if release is None:                # an older threadpoolctl: any thread may change it
+        return change()
+    release(force=True)
+    try:
+        return change()
+    finally:
+        release(force=True)

@@ -126,12 +126,13 @@ export async function bytes(url, signal) {
  * Upload a recording with progress. fetch() cannot report upload progress, so this one call
  * uses XMLHttpRequest; the browser streams the File from disk, so an hour-long WAV does not
  * freeze the page. Returns {promise, abort}.
+ *
+ * `columns` (optional): the overview's width, so the server draws the overview in the same
+ * read of the file as its loudness and true peak. `spectra` (optional): the body the page will
+ * post to /api/spectra for the new recording (without recording_id), so the server computes
+ * those spectra while it measures the file.
  */
-/**
- * Upload an audio file. `columns` (optional): the overview's width, so the server draws the
- * overview in the same read of the file as its loudness and true peak.
- */
-export function uploadRecording(file, onProgress, { columns } = {}) {
+export function uploadRecording(file, onProgress, { columns, spectra } = {}) {
   const xhr = new XMLHttpRequest();
   const promise = new Promise((resolve, reject) => {
     xhr.open('POST', urlFor('recordings'));
@@ -160,6 +161,7 @@ export function uploadRecording(file, onProgress, { columns } = {}) {
     };
     const form = new FormData();
     if (columns) form.append('columns', String(columns));
+    if (spectra) form.append('spectra', JSON.stringify(spectra));
     form.append('file', file, file.name);
     xhr.send(form);
   });

@@ -23,6 +23,17 @@ export function currentSpec(s) {
   return { ...(p ? p.spec : {}), ...s.route.spec };
 }
 
+/**
+ * The spectra the page asks for with the route (POST /api/spectra without recording_id): the
+ * route and the spectra view's options. An upload carries it, so the server computes the new
+ * recording's spectra while it measures the file. Null without a route.
+ */
+export function spectraAhead(s) {
+  const r = s.route;
+  if (!r) return null;
+  return { fs_out: r.fs_out, preset: r.preset, spec: r.spec, ...(s.spectraOptions || { log_axis: false }) };
+}
+
 const same = (a, b) => (a ?? null) === (b ?? null);
 
 /** What differs between conversion `c` and the controls now, in plain words ([] when nothing). */

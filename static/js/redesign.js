@@ -12,6 +12,11 @@ function keyOf(body) {
   return JSON.stringify([body.recording_id, body.fs_out, body.preset, Object.entries(body.spec).sort()]);
 }
 
+/** What a design depends on (the recording only through its rate). */
+function designKeyOf(body, fsIn) {
+  return JSON.stringify([fsIn, body.fs_out, body.preset, Object.entries(body.spec).sort()]);
+}
+
 function bodyOf(s) {
   const rec = s.recording;
   const route = s.route;
@@ -72,6 +77,7 @@ export function start(state) {
       // plans: false keeps live edits fast; the plans follow once the controls rest
       const d = await api.design({ ...body, plans: false }, signal);
       if (mine !== seq) return;
+      shownKey = designKeyOf(body, d.fs_in);
       state.set({ design: d, designError: null, designBusy: false, plans: null });
       plansSoon(d.id);
     } catch (err) {
@@ -101,11 +107,20 @@ export function start(state) {
   // key (a design still in flight is aborted by the next one, but the server finishes it)
   const soon = debounce(redesign, 40);
   let designedFor = null;        // a refresh of the same recording's figures is no reason to redesign
+  // the key of the design shown; another recording at the same rate has that very design (its
+  // id included), so it keeps it rather than asking for it again
+  let shownKey = null;
+  const stillShown = (s) => {
+    const body = bodyOf(s);
+    return Boolean(body && s.design && !s.designError && !s.designBusy && !s.designEstimate
+      && shownKey === designKeyOf(body, s.recording.rate_hz));
+  };
   state.on(['route', 'recording'], (s, keys) => {
     if (keys.includes('recording')) {
       const id = s.recording ? s.recording.id : null;
       if (id === designedFor && !keys.includes('route')) return;
       designedFor = id;
+      if (!keys.includes('route') && stillShown(s)) return;
       soon.now();
     } else {
       if (state.get('designBusy')) abandon();   // the next edit abandons the running redesign

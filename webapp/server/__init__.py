@@ -69,6 +69,8 @@ class State:
                                    on_result=self._on_result)
         self.background = ThreadPoolExecutor(max_workers=1,
                                              thread_name_prefix="rateferry-analysis")
+        # work started ahead for the page (an upload's spectra, beside its analysis)
+        self.ahead = ThreadPoolExecutor(max_workers=1, thread_name_prefix="rateferry-ahead")
         from .library import RunningAnalyses
         self.analyses = RunningAnalyses()
         self.demo_id = None
@@ -99,6 +101,7 @@ class State:
         """Stop the workers (running conversions are cancelled) and the helper threads."""
         self.pool.shutdown(cancel=True)
         self.background.shutdown(wait=True, cancel_futures=True)
+        self.ahead.shutdown(wait=True, cancel_futures=True)
         self.cache.shutdown()
 
 

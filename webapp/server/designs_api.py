@@ -4,15 +4,16 @@ import time
 
 from flask import Blueprint, current_app, request
 
-from webapp import figures, media
+from webapp import media
 from webapp.jsontools import jsonable
 from webapp.dsp.errors import RateferryError
 from webapp.delivery import DITHERS
 from webapp.designs import design_estimate
 
 from .api import _bool, _json, _store_design, _url
+from . import spectra_ahead
 from .db import state
-from .params import (choice, integer, json_body, number, recording_file_or_410, recording_or_404,
+from .params import (choice, integer, json_body, recording_file_or_410, recording_or_404,
                      spec_input, while_on_disk)
 
 __all__ = ["bp"]
@@ -133,22 +134,19 @@ def create_audit():
 def create_spectra():
     data = json_body()
     rec = recording_file_or_410(recording_or_404(data.get("recording_id")))
-    spec, fs_in, fs_out, design_id = spec_input(data, fs_in=rec["rate_hz"])
-    max_s = current_app.config["EXCERPT_MAX_S"]
-    start_s = number(data, "start_s", low=0.0, unit="s")
-    length_s = number(data, "length_s", low=0.0, high=max_s, unit="s")
-    log_axis = _bool(data, "log_axis", False)
+    ask = spectra_ahead.read_ask(data, rec["rate_hz"])
     cache = state().cache
-    plan = cache.route_plan(spec, fs_in, fs_out)
+    plan = cache.route_plan(ask.spec, ask.fs_in, ask.fs_out)
+    design_id = ask.design_id
     if design_id is None:
-        design_id = _store_design(spec, fs_in, fs_out, plan.figures())
+        design_id = _store_design(ask.spec, ask.fs_in, ask.fs_out, plan.figures())
     with while_on_disk(rec):
         info = media.probe(rec["path"])
+        # spectra started with the upload are taken as they are (or waited for)
         view, cached = cache.memo(
-            "spectra", (rec["id"], spec, fs_in, fs_out, start_s, length_s, log_axis),
-            lambda: figures.spectra_view(rec["path"], info, plan, start_s=start_s,
-                                         length_s=length_s, log_axis=log_axis,
-                                         max_length_s=max_s))
+            spectra_ahead.KIND, spectra_ahead.cache_key(rec["id"], ask),
+            lambda: spectra_ahead.compute(plan, rec["path"], info, ask,
+                                          current_app.config["EXCERPT_MAX_S"]))
     body = dict(view, design_id=design_id, recording_id=rec["id"],
                 meets_mask=bool(plan.meets_mask), cached=cached)
     return _json(body)

@@ -11,6 +11,7 @@ from webapp.dsp.numbers import whole_number
 from webapp.store import ACTIVE_STATUSES
 
 from .api import _MIMETYPES, _file_field, _json, _url
+from . import spectra_ahead
 from .db import get_db, state
 from .errors import ApiError
 from .library import analyse, probe_figures
@@ -57,6 +58,8 @@ def upload_recording():
         raw = request.form.get("columns")
         # the page's overview width: the overview is drawn by the same read as the meters
         columns = None if raw is None else _columns(raw)
+        # the page's route: its spectra run beside the analysis
+        wanted = spectra_ahead.form_field(request.form.get("spectra"))
         name = display_name(storage.filename)
         ext = upload_extension(storage.filename)
         st = state()
@@ -67,20 +70,27 @@ def upload_recording():
     if size == 0:
         os.unlink(target)
         raise AudioFileError(f"cannot read '{name}': the file is empty (0 bytes)", "file")
-    overview = None
+    overview = ahead = None
     try:
         info = media.probe(target)
+        if wanted is not None:
+            ahead = spectra_ahead.start(st.ahead, st.cache, wanted, target, info)
         if info.duration_s <= current_app.config["ANALYSE_SYNC_MAX_S"]:
             meters, overview = analyse(target, info, columns)
         else:
             meters = dict(analysis="pending")
     except RateferryError as exc:
+        if ahead is not None:
+            ahead[1].cancel()
         os.unlink(target)
         raise _with_name(exc, target, name) from None
     rec = get_db().add_recording(name=name, path=target, owned=True, demo=False,
                                  probe=probe_figures(info), meters=meters)
     if overview is not None:
         st.cache.put("overview", (rec["id"], columns), overview)
+    if ahead is not None:
+        ask, future = ahead
+        st.cache.adopt(spectra_ahead.KIND, spectra_ahead.cache_key(rec["id"], ask), future)
     if meters["analysis"] == "pending":
         st.analyses.submit(st.background, rec["id"], columns, _analyse_later, st, rec["id"],
                            target, info, name, columns)

@@ -2,6 +2,7 @@
 // loudness and true peak.
 
 import * as api from '../api.js';
+import { spectraAhead } from '../current.js';
 import * as fmt from '../format.js';
 import { el, fill, facts, showError, clearErrors, errorSlot } from '../ui.js';
 
@@ -134,8 +135,10 @@ export function init(root, state) {
     progress.value = 0;
     status.textContent = `Uploading ${file.name} (${fmt.bytes(file.size)})…`;
     const t0 = performance.now();
-    // the overview's width goes with the file: the server draws it while it measures
+    // the overview's width and the spectra's route go with the file: the server draws the one
+    // and computes the other while it measures
     const columns = state.get('overviewColumns');
+    const spectra = spectraAhead(state.get());
     upload = api.uploadRecording(file, (p) => {
       const pct = p.total ? (100 * p.sent) / p.total : 0;
       progress.value = pct;
@@ -146,18 +149,23 @@ export function init(root, state) {
         const eta = p.sent > 0 ? elapsed * (p.total - p.sent) / p.sent : NaN;
         status.textContent = `Uploading ${file.name}: ${fmt.percent(pct)} · about ${fmt.duration(eta)} left`;
       }
-    }, { columns });
-    upload.promise.then(async (rec) => {
+    }, { columns, spectra });
+    upload.promise.then((rec) => {
       progress.hidden = true;
       status.textContent = `Loaded ${rec.name}.`;
-      let recordings = state.get('recordings') || [];
-      try {
-        recordings = (await api.recordings()).recordings;
-      } catch (_) {
-        recordings = [rec, ...recordings];
-      }
-      // the overview asks for the columns drawn with the upload, even if its width moved since
-      state.set({ recordings, recording: rec, overviewColumns: columns });
+      // the recording is shown at once (its overview and spectra are asked for now); the
+      // server's list follows, after them. The overview asks for the columns drawn with the
+      // upload, even if its width moved since.
+      const known = (state.get('recordings') || []).filter((r) => r.id !== rec.id);
+      state.set({ recordings: [rec, ...known], recording: rec, overviewColumns: columns });
+      setTimeout(async () => {
+        try {
+          const { recordings } = await api.recordings();
+          if (recordings.some((r) => r.id === rec.id)) state.set({ recordings });
+        } catch (_) {
+          // keep the list the page made
+        }
+      }, 0);
     }).catch((err) => {
       progress.hidden = true;
       status.textContent = '';

@@ -22,9 +22,11 @@ export function init(root, state) {
   function draw() {
     if (!data) return;
     plots.overview(plot, data, state.get('excerpt'));
+    plot.classList.remove('waiting');
     if (!clickable) {
       clickable = true;
       plots.onClick(plot, (t) => {
+        if (!data) return;
         const e = state.get('excerpt') || { start_s: 0, length_s: 10 };
         const length = Math.min(e.length_s, data.duration_s);
         const start = Math.max(0, Math.min(Math.round(t * 10) / 10, data.duration_s - length));
@@ -74,8 +76,9 @@ export function init(root, state) {
     if (!rec || rec.id === shownFor) return;
     shownFor = rec.id;
     data = null;
-    plots.clear(plot);
-    clickable = false;          // a purged plot has lost its click handler
+    // the last recording's picture is hidden, not purged: the next one is drawn over the same
+    // plot (a plot drawn afresh costs about twice as much)
+    plot.classList.add('waiting');
     load(rec);
   });
   state.on('excerpt', draw);

@@ -4,6 +4,7 @@
 import * as api from '../api.js';
 import * as fmt from '../format.js';
 import * as plots from '../plots.js';
+import { spectraAhead } from '../current.js';
 import { el, fill, showError, clearErrors, errorSlot, debounce, numberOf } from '../ui.js';
 
 export const TAB = 'spectra';
@@ -68,12 +69,12 @@ export function init(root, state) {
     const rec = s.recording;
     let body;
     if (route) {
-      const r = s.route;
-      if (!rec || !r) return;
-      body = { recording_id: rec.id, fs_out: r.fs_out, preset: r.preset, spec: r.spec, log_axis: logX() };
+      const ahead = spectraAhead(s);
+      if (!rec || !ahead) return;
+      body = { recording_id: rec.id, ...ahead };
     } else {
       if (!d || !rec || d.fs_in !== rec.rate_hz) return;
-      body = { recording_id: rec.id, design_id: d.id, log_axis: logX() };
+      body = { recording_id: rec.id, design_id: d.id, ...s.spectraOptions };
     }
     clearErrors(root);
     if (controller) controller.abort();
@@ -82,10 +83,6 @@ export function init(root, state) {
     byRoute = route;
     root.classList.add('busy');
     summary.textContent = 'Analysing…';
-    if (excerptBox.checked) {
-      body.start_s = numberOf(start);
-      body.length_s = numberOf(length);
-    }
     try {
       const sp = await api.spectra(body, controller.signal);
       if (mine !== seq) return;
@@ -139,7 +136,7 @@ export function init(root, state) {
     const rec = s.recording;
     if (!rec || rec.id === analysedFor) return;      // a refresh of the same recording
     analysedFor = rec.id;
-    setTimeout(() => load({ route: true }), 0);     // once the route has settled for it
+    queueMicrotask(() => load({ route: true }));    // once the route has settled for it
   });
   state.on('design', (s) => {
     const d = s.design;
@@ -158,10 +155,25 @@ export function init(root, state) {
     if (!visible()) return;
     if (dirty) draw(); else plots.resize(plot);
   });
-  for (const radio of [linear, log]) radio.addEventListener('change', () => load());
+  // what the spectra are asked for beside the route (the axis, one excerpt): in the state, so
+  // an upload can carry it and the server computes the new recording's spectra while it reads
+  const publish = () => state.set({
+    spectraOptions: {
+      log_axis: logX(),
+      ...(excerptBox.checked ? { start_s: numberOf(start), length_s: numberOf(length) } : {}),
+    },
+  });
+  publish();
+  for (const radio of [linear, log]) radio.addEventListener('change', () => { publish(); load(); });
   excerptBox.addEventListener('change', () => {
     start.disabled = length.disabled = !excerptBox.checked;
+    publish();
     load();
   });
-  for (const input of [start, length]) input.addEventListener('change', () => excerptBox.checked && load());
+  for (const input of [start, length]) {
+    input.addEventListener('change', () => {
+      publish();
+      if (excerptBox.checked) load();
+    });
+  }
 }
