@@ -32,7 +32,8 @@ from threadpoolctl import threadpool_limits
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
 
 from webapp.dsp.design import design  # noqa: E402
-from webapp.dsp.loudness import LoudnessMeter, TruePeakMeter  # noqa: E402
+from webapp.dsp.loudness import LoudnessMeter  # noqa: E402
+from webapp.dsp.truepeak import TruePeakMeter  # noqa: E402
 from webapp.dsp.oversample import prototype  # noqa: E402
 from webapp.dsp.polyphase import make_converter  # noqa: E402
 from webapp.dsp.spec import preset  # noqa: E402

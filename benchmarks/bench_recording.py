@@ -242,7 +242,7 @@ def parts(path):
 
 def _search_from(blocks, info):
     """The first frame the one read searches for overs (as its true-peak stage decides)."""
-    from webapp.dsp.loudness import TruePeakMeter
+    from webapp.dsp.truepeak import TruePeakMeter
     from webapp.overview import _search_start
     meter = TruePeakMeter(rate_hz=info.rate_hz, channels=info.channels)
     for b in blocks:

@@ -14,7 +14,7 @@ import pytest
 from threadpoolctl import threadpool_limits
 
 from webapp import media
-from webapp.dsp.loudness import TruePeakMeter
+from webapp.dsp.truepeak import TruePeakMeter
 from webapp.dsp.overs import TruePeakOvers
 from webapp.dsp.oversample import CHUNK_FRAMES, EDGE_FRAMES, PeakInterpolator
 from webapp.overview import _PeakAndOvers, overview_and_meters

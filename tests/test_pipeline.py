@@ -19,7 +19,8 @@ import soundfile as sf
 from webapp import pipeline
 from webapp.cli import main
 from webapp.dsp.errors import AudioFileError
-from webapp.dsp.loudness import integrated_loudness, true_peak
+from webapp.dsp.loudness import integrated_loudness
+from webapp.dsp.truepeak import true_peak
 from webapp.dsp.spec import Spec, preset
 from webapp.delivery import Delivery
 from webapp.jobs import convert_file, output_name

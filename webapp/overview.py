@@ -211,7 +211,7 @@ class _PeakAndOvers:
     running reading first goes over the threshold.
 
     While the meter's running peak stays under the threshold, no frame it has measured is an
-    over (:meth:`webapp.dsp.loudness.TruePeakMeter.running`): only the input a search would
+    over (:meth:`webapp.dsp.truepeak.TruePeakMeter.running`): only the input a search would
     need from there is kept (the frames from REACH_FRAMES before the first frame not measured,
     a chunk or two). When it comes within 1e-4 of the threshold (the margin the interpolator
     gives its bounds: the meter's products, grouped otherwise, may differ from a search's in

@@ -32,7 +32,8 @@ from .dsp.dither import Quantizer
 from .dsp.limiter import TruePeakLimiter
 from .delivery import Attempt, Delivery, first_attempt, review
 from .dsp.errors import ParameterError, RateferryError
-from .dsp.loudness import LoudnessMeter, TruePeakMeter
+from .dsp.loudness import LoudnessMeter
+from .dsp.truepeak import TruePeakMeter
 from .dsp.polyphase import make_converter
 from .dsp.spec import Spec
 

@@ -20,10 +20,8 @@ import pytest
 from scipy import signal
 
 from webapp.dsp.errors import ParameterError
-from webapp.dsp.loudness import (
-    LoudnessMeter, TruePeakMeter, annex2_interpolator, default_channel_weights, integrated_loudness,
-    k_weighting, true_peak, true_peak_oversampling,
-)
+from webapp.dsp.loudness import LoudnessMeter, default_channel_weights, integrated_loudness, k_weighting
+from webapp.dsp.truepeak import TruePeakMeter, annex2_interpolator, true_peak, true_peak_oversampling
 from webapp.dsp.oversample import CHUNK_FRAMES, EDGE_FRAMES, PeakInterpolator, prototype
 
 

@@ -1,6 +1,6 @@
 """Where the true peak goes over: webapp.dsp.overs against the whole-programme true-peak meter.
 
-Reference: the true-peak meter of ITU-R BS.1770-4 (webapp.dsp.loudness.TruePeakMeter, checked in
+Reference: the true-peak meter of ITU-R BS.1770-4 (webapp.dsp.truepeak.TruePeakMeter, checked in
 test_loudness.py against the standard's figures): a programme whose meter reading is above a
 threshold has at least one frame over it, and none when the threshold is above the reading;
 the blocks the stream is cut into do not matter. The plain oracle of the 16x reconstruction is
@@ -13,7 +13,7 @@ import pytest
 from scipy import signal
 
 from webapp.dsp.errors import ParameterError
-from webapp.dsp.loudness import true_peak
+from webapp.dsp.truepeak import true_peak
 from webapp.dsp.overs import FULL_SCALE, TruePeakOvers, full_scale_frames, over_floor
 from webapp.dsp.oversample import EDGE_FRAMES, PeakInterpolator, prototype
 

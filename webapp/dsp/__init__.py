@@ -14,7 +14,8 @@ A catalogue; each public name lives in a private-purpose module:
 - speed:     speed_design, change_speed
 - spectrum:  welch_spectrum, dense_response, response_at
 - dither:    Quantizer
-- loudness:  LoudnessMeter, TruePeakMeter, integrated_loudness, true_peak, k_weighting
+- loudness:  LoudnessMeter, integrated_loudness, k_weighting
+- truepeak:  TruePeakMeter, true_peak
 - audit:     audit (imported from webapp.dsp.audit)
 - errors:    RateferryError, ParameterError, AudioFileError
 """

@@ -1,6 +1,6 @@
 """Where a signal goes over: samples at full scale and true-peak overs, frame by frame.
 
-The true-peak meter (:class:`webapp.dsp.loudness.TruePeakMeter`) reports the highest peak of a
+The true-peak meter (:class:`webapp.dsp.truepeak.TruePeakMeter`) reports the highest peak of a
 whole programme; this module says *where* the peaks are, for a picture of the recording over
 time. It uses the meter's own 16x interpolator (:class:`webapp.dsp.oversample.PeakInterpolator`,
 the per-frame true-peak envelope), so a frame reported here over a threshold reads over it on
