@@ -14,7 +14,8 @@ import pytest
 from scipy import signal
 
 from webapp.dsp.errors import ParameterError
-from webapp.dsp.limiter import TruePeakLimiter, limit
+from webapp.dsp.limiter import MARGIN_DB, TruePeakLimiter, limit
+from webapp.dsp.oversample import EDGE_FRAMES, PeakInterpolator
 
 
 def reference_true_peak_db(x):
@@ -136,6 +137,52 @@ def test_gain_curve_has_the_stated_attack_hold_and_release():
                                              abs=1e-9)
     expected_s = 0.035 + report.max_gain_reduction_db / 40.0
     assert expected_s < report.limited_s < expected_s + 0.008
+
+
+def stated_curve_output(x, rate, ceiling_dbtp, lookahead_ms=5.0, hold_ms=20.0, release=40.0):
+    """The output by the module's four steps written out plainly over the whole signal: the
+    envelope with every row computed, s by a window minimum, the release by a per-frame loop,
+    the attack by two moving averages (lookahead and hold rounded to even frames as stated)."""
+    A = max(2, 2 * round(lookahead_ms * rate / 2000.0))
+    H = max(2, 2 * round(hold_ms * rate / 2000.0))
+    interp = PeakInterpolator(x.shape[1])
+    e = np.concatenate([interp.process(x, 0.0), interp.finish(0.0)]).max(axis=1)   # from -EDGE
+    c = 10 ** ((ceiling_dbtp - MARGIN_DB) / 20)
+    first = -EDGE_FRAMES - A - H                                # r is 1 before the envelope
+    r = np.ones(x.shape[0] + 2 * EDGE_FRAMES + 2 * (A + H) + 8)
+    with np.errstate(divide="ignore"):
+        r[-first - EDGE_FRAMES:-first - EDGE_FRAMES + e.size] = np.minimum(1.0, c / e)
+    frames = np.arange(-EDGE_FRAMES - A, x.shape[0])          # the frames u is needed for
+    s = np.array([r[n - H - first:n + A + 1 - first].min() for n in frames])
+    u, prev = np.empty(frames.size), 0.0
+    slope = release / rate
+    for k, level in enumerate(20 * np.log10(s)):
+        prev = min(0.0, level, prev + slope)
+        u[k] = prev
+    lin = 10 ** (u / 20)
+    L = A // 2 + 1
+    twice = np.convolve(np.convolve(lin, np.ones(L) / L, "valid"), np.ones(L) / L, "valid")
+    g = twice[-x.shape[0]:]                                  # frame n: lin of frames n - A .. n
+    return x * g[:, None]
+
+
+def test_output_is_the_stated_gain_curve_where_it_limits_and_where_it_rests(rng):
+    # the chunks far from any peak take a shortcut (unity, nothing computed): the output must
+    # still be the stated curve's everywhere, through attacks, holds, releases and rests
+    rate = 48000
+    x = 0.05 * rng.standard_normal((6 * rate, 2))
+    for at, gain in ((1.0, 30.0), (1.3, 20.0), (4.0, 25.0)):      # peaks, one during a release
+        i = int(at * rate)
+        x[i:i + 300] *= gain
+    y, report = limit(x, rate, -1.0)
+    expected = stated_curve_output(x, rate, -1.0)
+    # the envelope is float32 products (relative error about 1e-7, see oversample), grouped
+    # differently with every row computed; a curve step gone wrong is off by far more (the
+    # release alone moves 40 dB a second)
+    np.testing.assert_allclose(y, expected, rtol=1e-6, atol=1e-9)
+    assert report.max_gain_reduction_db > 3.0
+    rest = slice(int(2.5 * rate), int(3.5 * rate))               # long after the release ended
+    np.testing.assert_array_equal(y[rest], x[rest])
 
 
 def test_limiter_rejects_bad_parameters():

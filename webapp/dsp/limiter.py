@@ -185,11 +185,14 @@ class TruePeakLimiter:
             gain = self._curve()
             lo, hi = self._next - _CHUNK, self._next  # frames the gain covers
             first, last = max(lo, self._x_start), min(hi, self._x_start + self._x.shape[0])
-            if last > first:
+            if last > first and gain is None:          # unity: the input as it is
+                out.append(self._x[first - self._x_start:last - self._x_start])
+            elif last > first:
                 g = gain[first - lo:last - lo]
                 out.append(self._x[first - self._x_start:last - self._x_start] * g[:, None])
                 self._lowest = min(self._lowest, float(g.min()))
                 self._limited += int(np.count_nonzero(g < _LIMITING))
+            if last > first:
                 self._x = self._x[last - self._x_start:]
                 self._x_start = last
         y = np.concatenate(out) if out else np.zeros((0, self.channels))
@@ -197,11 +200,17 @@ class TruePeakLimiter:
         return y
 
     def _curve(self):
-        """Gain of the next chunk of frames (steps 2-4 of the module notes); advances."""
+        """Gain of the next chunk of frames (steps 2-4 of the module notes), None for unity;
+        advances."""
         n0, A, H = self._next, self._ahead, self._hold
         # 2. s[n] = min r[n - H .. n + A] for n in the chunk
         lo = n0 - H - self._r_start
         window = self._r[lo:lo + _CHUNK + H + A]
+        if self._u_db == 0.0 and window.min() >= 1.0 and self._lin.min() >= 1.0:
+            # nothing to reduce in reach and no release under way: steps 2-4 give exactly 1
+            # (0 dB through the release, averages of ones), most of a programme's chunks
+            self._advance_curve(n0)
+            return None
         held = ndimage.minimum_filter1d(window, size=H + A + 1, mode="nearest")
         s = held[(H + A) // 2:(H + A) // 2 + _CHUNK]   # centre of the window of frame n is n + (A - H)/2
         s_db = 20.0 * np.log10(s)
@@ -214,12 +223,15 @@ class TruePeakLimiter:
         lin = np.concatenate([self._lin, 10.0 ** (u_db / 20.0)])
         self._lin = lin[-A:].copy()
         g = _moving_average(_moving_average(lin, A // 2 + 1), A // 2 + 1)
-        # drop consumed r, keep the hold history
-        cut = n0 + _CHUNK - H - self._r_start
+        self._advance_curve(n0)
+        return g
+
+    def _advance_curve(self, n0):
+        """Drop the consumed r (keeping the hold's history); the next chunk starts after n0's."""
+        cut = n0 + _CHUNK - self._hold - self._r_start
         self._r = self._r[cut:]
         self._r_start += cut
         self._next = n0 + _CHUNK
-        return g
 
 
 def _moving_average(values, length):

@@ -171,7 +171,8 @@ class PeakInterpolator:
 
     Given a ``floor``, a row of 4 frames whose bound (``fine_gain`` times the largest 2x sample
     in reach) stays under it is not computed: its frames report the bound, which is below the
-    floor. Callers that only care about values reaching the floor (a meter with its running
+    floor; a whole chunk whose bound (``chunk_gain`` times its largest input in reach) stays
+    under it in every channel is not interpolated at all and reports that bound. Callers that only care about values reaching the floor (a meter with its running
     peak, a limiter with its ceiling) lose nothing. :meth:`overs` says only which frames
     exceed a level (a search for overs), from the rows computed for that floor.
     """
@@ -271,8 +272,13 @@ class PeakInterpolator:
         parts = []
         for a in range(0, frames, CHUNK_FRAMES):
             count = min(CHUNK_FRAMES, frames - a)
-            # channels x count, or 1 x channels
-            part = self._chunk(self._window(a, count), count, floor)
+            window = self._window(a, count)
+            # channels x count, or 1 x channels; a chunk whose bound stays under the floor in
+            # every channel reports that bound for its frames (a limiter's chunks well under its
+            # ceiling, most of programme) at the cost of one reduction
+            bound = None if self.peak_only else self._chunk_bound(window, floor)
+            part = self._chunk(window, count, floor) if bound is None else \
+                np.repeat(bound[:, None], count, axis=1)
             parts.append(part)
             if running:
                 np.maximum(floor, part[0] if self.peak_only else part.max(axis=1), out=floor)
@@ -329,6 +335,14 @@ class PeakInterpolator:
                 found.append(np.flatnonzero(over).astype(np.int64) + (self._next + a))
         self._advance(frames)
         return np.concatenate(found) if found else np.zeros(0, dtype=np.int64)
+
+    def _chunk_bound(self, window, floor):
+        """Per channel, ``chunk_gain`` times the largest |input| in reach of a chunk (float64)
+        when that stays under the floor in every channel, else None."""
+        # abs of each extreme: a silent chunk's bound is +0.0 (a -0.0 would divide to -inf)
+        reach = np.maximum(np.abs(window.max(axis=1)), np.abs(window.min(axis=1)))
+        bound = self._chunk_gain * reach.astype(np.float64)
+        return bound if np.all(bound < floor * (1.0 - 1e-4)) else None
 
     def _first_stage(self, window, count):
         """The half-way points ``mid`` and the inputs ``xs`` of the frames of ``window`` after
