@@ -162,8 +162,10 @@ def create_app(test_config=None, *, instance_path=None):
     errors.register_error_handlers(app)
     security.init_security(app)
 
-    from . import api, batches, designs_api, drift_api, listening_api, page, recordings_api
+    from . import (api, batches, conversions_api, designs_api, drift_api, listening_api, page,
+                   recordings_api)
     app.register_blueprint(api.bp)
+    app.register_blueprint(conversions_api.bp)
     app.register_blueprint(recordings_api.bp)
     app.register_blueprint(designs_api.bp)
     app.register_blueprint(listening_api.bp)

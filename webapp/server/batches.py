@@ -12,8 +12,8 @@ from webapp.delivery import Delivery
 from webapp.dsp.errors import ParameterError, RateferryError
 from webapp.store import FINAL_STATUSES, new_id
 
-from .api import (OUTPUT_FORMAT_EXTENSIONS, _json, _prepare_conversion, _public_conversion,
-                  _queue_conversion, _readable, _stem, _url)
+from .api import OUTPUT_FORMAT_EXTENSIONS, _json, _stem, _url
+from .conversions_api import _prepare_conversion, _public_conversion, _queue_conversion, _readable
 from .db import get_db, state
 from .errors import ApiError
 from .params import choice, json_body, recording_file_or_410, recording_or_404, spec_input

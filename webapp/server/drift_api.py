@@ -16,8 +16,8 @@ from webapp.dsp.timebase import timebase_design
 from webapp.jsontools import jsonable
 from webapp.store import new_id
 
-from .api import (OUTPUT_FORMAT_EXTENSIONS, _json, _public_conversion, _queue_conversion,
-                  _readable, _stem, _store_design, _url)
+from .api import OUTPUT_FORMAT_EXTENSIONS, _json, _stem, _store_design, _url
+from .conversions_api import _public_conversion, _queue_conversion, _readable
 from .db import get_db, state
 from .errors import ApiError
 from .params import (choice, json_body, number, recording_file_or_410, recording_or_404,

@@ -10,7 +10,8 @@ from webapp.dsp import spec as spec_module
 from webapp.dsp.errors import ParameterError
 from webapp.store import new_id
 
-from .api import RENDITION_KINDS, _blind_summary, _done_or_409, _json, _url
+from .api import RENDITION_KINDS, _json, _url
+from .conversions_api import _blind_summary, _done_or_409
 from .db import get_db, state
 from .errors import ApiError
 from .params import (choice, conversion_or_404, integer, json_body, number, rate,
