@@ -102,29 +102,30 @@ def laptop_context(browser):
 def laptop_page(laptop_context, server):
     """A fresh 1280 x 800 page with the demo loaded, from the default settings; the test fails
     when the page threw."""
-    pg = laptop_context.new_page()
-    errors = []
-    pg.on("pageerror", lambda exc: errors.append(str(exc)))
-    pg.set_default_timeout(60000)
-    pg.goto(server + "/api/health")
-    pg.evaluate("() => window.localStorage.clear()")
-    pg.goto(server + "/")
+    pg, errors = _fresh_page(laptop_context, server, timeout_ms=60000)
     pg.wait_for_selector("body[data-ready='true']")
     yield pg
     pg.close()
     assert not errors, f"the page threw: {errors}"
 
 
-def open_page(context, server):
-    """A fresh page with the demo loaded and its first spectra drawn, starting from the
-    defaults (this browser's remembered settings are cleared first); returns (page, errors)."""
+def _fresh_page(context, server, *, timeout_ms):
+    """A new page on the app from the default settings (this browser's remembered settings are
+    cleared first), its errors collected; returns (page, errors)."""
     pg = context.new_page()
     errors = []
     pg.on("pageerror", lambda exc: errors.append(str(exc)))
-    pg.set_default_timeout(30000)
+    pg.set_default_timeout(timeout_ms)
     pg.goto(server + "/api/health")
     pg.evaluate("() => window.localStorage.clear()")
     pg.goto(server + "/")
+    return pg, errors
+
+
+def open_page(context, server):
+    """A fresh page with the demo loaded and its first spectra drawn, starting from the
+    defaults; returns (page, errors)."""
+    pg, errors = _fresh_page(context, server, timeout_ms=30000)
     wait_ready(pg)
     return pg, errors
 
