@@ -18,6 +18,7 @@ import soundfile as sf
 
 from webapp import pipeline
 from webapp.cli import main
+from webapp.dsp.dither import Quantizer
 from webapp.dsp.errors import AudioFileError
 from webapp.dsp.loudness import integrated_loudness
 from webapp.dsp.truepeak import true_peak
@@ -121,6 +122,26 @@ def test_pipeline_output_does_not_depend_on_the_block_size(tmp_audio, tmp_path):
                      delivery=Delivery(bits="64f"))
         outs.append(sf.read(p)[0])
     assert max(np.max(np.abs(o - outs[0])) for o in outs) <= 1e-12
+
+
+def test_shaped_dither_in_batches_gives_the_quantizers_codes_for_the_whole_signal(tmp_audio, tmp_path):
+    # the pipeline gathers blocks into the shaped quantiser's large batches (two here, the
+    # second partial, then the rest at the end): the codes must be those of one quantiser fed
+    # the whole converted signal (the float64 output of the same conversion) at once
+    rng = np.random.default_rng(12)
+    x = 0.2 * rng.standard_normal((int(1.3 * 524288 * 44100 / 48000), 2))
+    x[100000:130000] = 0.0                                      # digital silence too
+    src = tmp_audio("n.wav", x, 44100, subtype="DOUBLE")
+    spec = Spec(attenuation_db=100.0)
+    convert_file(src, tmp_path / "f.wav", spec=spec, fs_out=48000, delivery=Delivery(bits="64f"))
+    convert_file(src, tmp_path / "s.wav", spec=spec, fs_out=48000,
+                 delivery=Delivery(bits="16", dither="shaped", dither_seed=5))
+    converted, _ = sf.read(tmp_path / "f.wav")
+    shaped, _ = sf.read(tmp_path / "s.wav", dtype="int16")
+    assert converted.shape[0] > Quantizer(bits="16", dither="shaped", channels=2,
+                                          rate_hz=48000).preferred_frames
+    whole = Quantizer(bits="16", dither="shaped", seed=5, channels=2, rate_hz=48000).process(converted)
+    np.testing.assert_array_equal(shaped, whole)
 
 
 def test_cancel_leaves_no_output_and_no_temporary_file(tmp_audio, tmp_path):
