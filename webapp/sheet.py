@@ -20,36 +20,27 @@ Conventions
 * Files are written atomically (:func:`webapp.recipe.write_json_atomic`).
 """
 
-import functools
-import html
-from importlib import resources
-import json
 import math
-import os
 import re
-
-import numpy as np
 
 from . import sheet_delivery
 from .jsontools import jsonable
 from .recipe import recipe_file_name, recipe_from_result, write_json_atomic
 from . import sheet_plots
+from .sheet_markup import (CSP as _CSP, asset as _asset, cell as _cell, dump_json as _dump_json,
+                           esc as _esc, fmt as _fmt, json_script as _json_script,
+                           plot_div as _plot_div, plotly_js as _plotly_js, table as _table,
+                           verdict_table as _verdict_table)
 from .sheet_plots import axis_label
 from .dsp.audit import audit as run_audit
 from .dsp.errors import ParameterError, RateferryError
 
-__all__ = ["SHEET_BUDGET_BYTES", "sheet_html", "write_sheet"]
+__all__ = ["SHEET_BUDGET_BYTES", "sheet_html", "write_sheet", "route_html", "design_html"]
 
 #: The sheet must stay under this size (plotly.js alone is about 4.8 MB).
 SHEET_BUDGET_BYTES = 6 * 1000 * 1000
 # The bound on each plotted curve, kept under this name for the sheet's tests.
 _CURVE_POINTS = sheet_plots.CURVE_POINTS
-
-
-def _dump_json(obj, *, indent=None):
-    if indent is None:
-        return json.dumps(obj, allow_nan=False, separators=(",", ":"), ensure_ascii=False)
-    return json.dumps(obj, allow_nan=False, indent=indent, ensure_ascii=False)
 
 
 _TEXT_LIMITS = {"title": 200, "author": 200, "note": 10000}
@@ -103,102 +94,11 @@ def _blind_figures(blind):
 # ============================================================================================
 # the sheet: markup
 
-_esc = functools.partial(html.escape, quote=True)
-
-
-def _fmt(value, unit="", digits=4):
-    if value is None:
-        return "n/a"
-    if unit == "Hz":
-        digits = max(digits, 7)
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, (int, np.integer)):
-        text = f"{int(value)}"
-    elif isinstance(value, (float, np.floating)):
-        v = float(value)
-        if not math.isfinite(v):
-            return "n/a"
-        text = f"{v:.{digits}g}" if abs(v) < 1e6 else f"{v:.{digits + 3}g}"
-    else:
-        text = str(value)
-    return _esc(text + (f" {unit}" if unit else ""))
-
-
-def _cell(key, value, text=None, unit="", digits=4):
-    shown = text if text is not None else _fmt(value, unit, digits)
-    if key is None:
-        return f"<td>{shown}</td>"
-    raw = _esc(_dump_json(jsonable(value)))
-    cls = ' class="hash"' if key.endswith("sha256") else ""
-    return f'<td{cls} data-key="{_esc(key)}" data-value="{raw}">{shown}</td>'
-
-
-def _table(rows, cls="facts"):
-    """rows: (label, key, value[, unit[, text]])."""
-    out = [f'<table class="{cls}"><tbody>']
-    for row in rows:
-        label, key, value = row[:3]
-        unit = row[3] if len(row) > 3 else ""
-        text = row[4] if len(row) > 4 else None
-        out.append(f"<tr><th scope=\"row\">{_esc(label)}</th>{_cell(key, value, text, unit)}"
-                   "</tr>")
-    out.append("</tbody></table>")
-    return "".join(out)
-
-
-def _verdict_table(rows, *, rules=False):
-    """rows: (label, key, measured, unit, limit text, passes[, rule])."""
-    head = ["figure", "measured", "limit", "result"] + (["where the limit comes from"]
-                                                        if rules else [])
-    out = ['<table class="verdict"><thead><tr>'
-           + "".join(f'<th scope="col">{_esc(h)}</th>' for h in head) + "</tr></thead><tbody>"]
-    for row in rows:
-        label, key, measured, unit, limit_text, passes = row[:6]
-        out.append(f'<tr class="{"meets" if passes else "fails"}"><th scope="row">'
-                   f"{_esc(label)}</th>{_cell(key, measured, unit=unit, digits=5)}"
-                   f'<td>{_esc(limit_text)}</td><td class="result">'
-                   f"{'meets' if passes else 'FAILS'}</td>")
-        if rules:
-            out.append(f'<td class="rule">{_esc(row[6] if len(row) > 6 else "")}</td>')
-        out.append("</tr>")
-    out.append("</tbody></table>")
-    return "".join(out)
-
-
 def _duration_text(seconds):
     m, s = divmod(float(seconds), 60.0)
     h, m = divmod(int(m), 60)
     clock = f"{h}:{m:02d}:{s:06.3f}" if h else f"{m}:{s:06.3f}"
     return f"{seconds:.3f} s ({clock})"
-
-
-def _plot_div(plot_id, caption):
-    return (f'<figure class="plot-figure"><div class="plot" id="plot-{_esc(plot_id)}" '
-            f'data-plot="{_esc(plot_id)}"></div><figcaption>{caption}</figcaption></figure>')
-
-
-def _json_script(element_id, obj):
-    text = _dump_json(obj).replace("<", "\\u003c").replace(">", "\\u003e") \
-        .replace("&", "\\u0026").replace("\u2028", "\\u2028").replace("\u2029", "\\u2029")
-    return f'<script type="application/json" id="{element_id}">{text}</script>'
-
-
-@functools.lru_cache(maxsize=1)
-def _plotly_js():
-    import plotly
-    path = os.path.join(os.path.dirname(plotly.__file__), "package_data", "plotly.min.js")
-    try:
-        with open(path, encoding="utf-8") as f:
-            js = f.read()
-    except OSError as exc:
-        raise ParameterError(f"the design sheet needs plotly.js from the plotly package "
-                             f"({path}): {exc.strerror}", "sheet") from None
-    if re.search(r"</script|<!--", js, re.IGNORECASE):
-        # an inline <script> ends at the first "</script"; this bundle can't be inlined as is
-        raise ParameterError(f"{path} holds '</script' or '<!--' and can't be inlined",
-                             "sheet")
-    return js
 
 
 def _check_text(name, value):
@@ -211,25 +111,6 @@ def _check_text(name, value):
         raise ParameterError(f"{name} must be at most {limit} characters, got {len(value)}",
                              name)
     return value
-
-
-@functools.lru_cache(maxsize=None)
-def _asset(name):
-    """The text of ``webapp/sheet_assets/<name>``: the sheet's stylesheet (sheet.css) and the
-    script that draws its plots and runs its buttons (sheet.js), inlined into every sheet."""
-    path = resources.files(__package__) / "sheet_assets" / name
-    try:
-        return path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise ParameterError(f"the design sheet needs {name} from the installed package "
-                             f"({path}): {exc.strerror}", "sheet") from None
-
-
-# The sheet's own script and style are inline, as is plotly.js: 'unsafe-inline' lets them run,
-# and nothing else may load.
-_CSP = ("default-src 'none'; script-src 'unsafe-inline'; style-src 'unsafe-inline'; "
-        "img-src data: blob:; font-src data:; connect-src 'none'; form-action 'none'; "
-        "base-uri 'none'")
 
 
 def _design_rows(figs, design):
@@ -383,7 +264,7 @@ def _source_html(result, source_name):
             f'<div class="columns"><div>{facts}</div><div>{meters}</div></div></section>')
 
 
-def _route_html(result, figs, prefix=""):
+def route_html(result, figs, prefix=""):
     """``result`` needs plan, spec, fs_in, fs_out; ``prefix`` keeps ids apart when a page
     shows several routes (the batch sheet)."""
     design, mask, spec = result.plan, result.plan.mask, result.spec
@@ -406,7 +287,9 @@ def _route_html(result, figs, prefix=""):
             f"{_table(rows)}</section>")
 
 
-def _design_html(result, figs, prefix=""):
+def design_html(result, figs, prefix=""):
+    """The filter design section: the design's figures, its stages and its verdict against
+    the mask (``prefix`` as for :func:`route_html`)."""
     design = result.plan
     h = [f'<section class="sheet-section" id="{prefix}design"><h2>Filter design and verdict'
          '</h2>']
@@ -556,8 +439,8 @@ def sheet_html(result, *, title=None, author=None, note=None, blind=None, audit=
         _head_html(result, title=title, author=author, note=note, created_text=created_text,
                    source_name=source_name, output_name=output_name),
         _source_html(result, source_name),
-        _route_html(result, figs),
-        _design_html(result, figs),
+        route_html(result, figs),
+        design_html(result, figs),
         _spectra_html(spectra, spectra_note),
         _delivery_html(result, output_name, profile),
         _audit_section(audit_figs, audit_note, audit_plots),

@@ -20,6 +20,7 @@ from .. import __version__
 from ..jsontools import jsonable
 from ..recipe import write_json_atomic
 from .. import sheet as design_sheet
+from .. import sheet_markup
 from .. import sheet_plots
 
 __all__ = ["REPORT_FIELDS", "REPORT_NAMES", "file_row", "write_reports", "batch_sheet_html"]
@@ -32,7 +33,7 @@ REPORT_FIELDS = (
     "output_true_peak_dbtp", "gain_db", "clipped_samples", "seconds", "worker", "output_sha256",
     "source_sha256", "reproduces_recipe",
 )
-_esc = design_sheet._esc
+_esc = sheet_markup.esc
 
 
 def _route_text(figs):
@@ -141,7 +142,7 @@ def _file_table(rows):
                              f'{_esc(r["state"])}<div class="reason">{_esc(r["message"])}</div>'
                              "</td>")
             else:
-                cells.append(design_sheet._cell(f"files.{i}.{key}", r.get(key), unit=unit))
+                cells.append(sheet_markup.cell(f"files.{i}.{key}", r.get(key), unit=unit))
         out.append(f'<tr class="{_esc(r["state"])}">{"".join(cells)}</tr>')
     out.append("</tbody></table>")
     return "".join(out)
@@ -169,8 +170,8 @@ def batch_sheet_html(rows, plans, *, created, cluster=""):
         plots[prefix + "impulse"] = sheet_plots.impulse_plot(route)
         sections.append(f'<h2 class="route-title">Design {i + 1}: {plan.fs_in} Hz &rarr; '
                         f"{plan.fs_out} Hz</h2>")
-        sections.append(design_sheet._route_html(route, figs, prefix))
-        sections.append(design_sheet._design_html(route, figs, prefix))
+        sections.append(design_sheet.route_html(route, figs, prefix))
+        sections.append(design_sheet.design_html(route, figs, prefix))
     badge = ("every file is done" if ok else f"{counts['failed']} file"
              f"{'s' if counts['failed'] != 1 else ''} failed")
     head = (f'<header class="sheet-head"><h1>{_esc(title)}</h1><p class="byline">Made '
@@ -186,17 +187,17 @@ def batch_sheet_html(rows, plans, *, created, cluster=""):
              f"{_file_table(rows)}</section>")
     return "".join([
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">',
-        f'<meta http-equiv="Content-Security-Policy" content="{design_sheet._CSP}">',
+        f'<meta http-equiv="Content-Security-Policy" content="{sheet_markup.CSP}">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f'<meta name="generator" content="Rateferry {_esc(__version__)}">',
         f"<title>{_esc(title)}</title>"
-        f"<style>\n{design_sheet._asset('sheet.css')}{_EXTRA_CSS}</style></head>"
+        f"<style>\n{sheet_markup.asset('sheet.css')}{_EXTRA_CSS}</style></head>"
         "<body><main>",
         head, table, *sections,
         f"<footer><p>Rateferry {_esc(__version__)} &middot; batch sheet made "
         f"{_esc(created_text)}</p></footer></main>",
-        design_sheet._json_script("rf-report", dict(counts=counts, files=rows)),
-        design_sheet._json_script("rf-plots", plots),
-        f'<script id="rf-plotly">{design_sheet._plotly_js()}</script>',
-        f"<script>\n{design_sheet._asset('sheet.js')}</script></body></html>\n",
+        sheet_markup.json_script("rf-report", dict(counts=counts, files=rows)),
+        sheet_markup.json_script("rf-plots", plots),
+        f'<script id="rf-plotly">{sheet_markup.plotly_js()}</script>',
+        f"<script>\n{sheet_markup.asset('sheet.js')}</script></body></html>\n",
     ])
