@@ -172,9 +172,10 @@ class PeakInterpolator:
     Given a ``floor``, a row of 4 frames whose bound (``fine_gain`` times the largest 2x sample
     in reach) stays under it is not computed: its frames report the bound, which is below the
     floor; a whole chunk whose bound (``chunk_gain`` times its largest input in reach) stays
-    under it in every channel is not interpolated at all and reports that bound. Callers that only care about values reaching the floor (a meter with its running
-    peak, a limiter with its ceiling) lose nothing. :meth:`overs` says only which frames
-    exceed a level (a search for overs), from the rows computed for that floor.
+    under it in every channel is not interpolated at all and reports that bound. Callers that
+    only care about values reaching the floor (a meter with its running peak, a limiter with
+    its ceiling) lose nothing. :meth:`overs` says only which frames exceed a level (a search
+    for overs), from the rows computed for that floor.
     """
 
     def __init__(self, channels, *, peak_only=False):
