@@ -233,7 +233,8 @@ def _lanes_block(scaled, tpdf, history, errors, feedback, low, high):
             if repaired < last:
                 state = lane_errs[start + last - _ORDER:start + last, k, c][::-1].tolist()
                 if clip:   # the plain loop counted where it ran, the lane counts the rest
-                    count += int(np.count_nonzero(raw[repaired:last, k, c] != lane_codes[repaired:last, k, c]))
+                    rest = slice(repaired, last)
+                    count += int(np.count_nonzero(raw[rest, k, c] != lane_codes[rest, k, c]))
             clipped += count
         errors[c][:] = state
     return codes, clipped
