@@ -22,6 +22,7 @@ import numpy as np
 from scipy import linalg, signal
 
 from .errors import ParameterError
+from .frames import validate_channels
 from .rates import validate_rate
 from .shaping import PREFERRED_SAMPLES, new_history, shape_block
 
@@ -198,10 +199,7 @@ class Quantizer:
         if isinstance(seed, bool) or not isinstance(seed, numbers.Integral) or seed < 0:
             raise ParameterError(f"seed must be an integer >= 0, got {seed!r}", "seed")
         self.seed = int(seed)
-        if isinstance(channels, bool) or not isinstance(channels, numbers.Integral) \
-                or not 1 <= channels <= 64:
-            raise ParameterError(f"channels must be an integer from 1 to 64, got {channels!r}", "channels")
-        self.channels = int(channels)
+        self.channels = validate_channels(channels)
         self.rate_hz = _validate_shaped_rate(rate_hz) if dither == "shaped" else (
             None if rate_hz is None else validate_rate(rate_hz, field="rate_hz"))
         self.clipped_samples = 0

@@ -1,7 +1,8 @@
-"""Blocks of frames x channels as the meters take them: the channel count and the checks.
+"""Blocks of frames x channels as the core's streams take them: the channel count and the checks.
 
-Both meters (:mod:`webapp.dsp.loudness`, :mod:`webapp.dsp.truepeak`) take float blocks of
-frames x channels in a stream; these are their shared checks, each naming the rule and the value.
+Both meters (:mod:`webapp.dsp.loudness`, :mod:`webapp.dsp.truepeak`), the limiter and the
+quantiser take float blocks of frames x channels in a stream; these are their shared checks,
+each naming the rule and the value.
 """
 
 import numbers
@@ -14,6 +15,8 @@ __all__ = ["validate_channels", "as_frames"]
 
 
 def validate_channels(channels):
+    """The channel count as an int: a whole number from 1 to 64 (the meters, the limiter and
+    the quantiser all take this many)."""
     if isinstance(channels, bool) or not isinstance(channels, numbers.Integral) or not 1 <= channels <= 64:
         raise ParameterError(f"channels must be an integer from 1 to 64, got {channels!r}", "channels")
     return int(channels)

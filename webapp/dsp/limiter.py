@@ -37,6 +37,7 @@ import numpy as np
 from scipy import ndimage
 
 from .errors import ParameterError
+from .frames import validate_channels
 from .oversample import EDGE_FRAMES, PeakInterpolator
 from .rates import validate_rate
 
@@ -106,10 +107,7 @@ class TruePeakLimiter:
     def __init__(self, *, rate_hz, channels, ceiling_dbtp, lookahead_ms=5.0, hold_ms=20.0,
                  release_db_per_s=40.0):
         self.rate_hz = validate_rate(rate_hz, field="rate_hz")
-        if isinstance(channels, bool) or not isinstance(channels, numbers.Integral) \
-                or not 1 <= channels <= 64:
-            raise ParameterError(f"channels must be an integer from 1 to 64, got {channels!r}", "channels")
-        self.channels = int(channels)
+        self.channels = validate_channels(channels)
         self.ceiling_dbtp = _positive_ms("ceiling_dbtp", ceiling_dbtp, -60.0, 0.0)
         self.lookahead_ms = _positive_ms("lookahead_ms", lookahead_ms, 0.1, 100.0)
         self.hold_ms = _positive_ms("hold_ms", hold_ms, 0.0, 1000.0)
