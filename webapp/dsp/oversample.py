@@ -331,7 +331,7 @@ class PeakInterpolator:
             window = self._window(a, count)
             # the chunk's bound first: most chunks of programme stop here (every row's bound
             # is at most this one)
-            if self._chunk_gain * float(max(window.max(), -window.min())) >= level * (1.0 - 1e-4):
+            if self._chunk_bound(window, level) is None:
                 over = self._chunk_overs(window, count, level, cut)
                 found.append(np.flatnonzero(over).astype(np.int64) + (self._next + a))
         self._advance(frames)
@@ -339,7 +339,8 @@ class PeakInterpolator:
 
     def _chunk_bound(self, window, floor):
         """Per channel, ``chunk_gain`` times the largest |input| in reach of a chunk (float64)
-        when that stays under the floor in every channel, else None."""
+        when that stays under the floor (one per channel, or one for all) in every channel,
+        else None."""
         # abs of each extreme: a silent chunk's bound is +0.0 (a -0.0 would divide to -inf)
         reach = np.maximum(np.abs(window.max(axis=1)), np.abs(window.min(axis=1)))
         bound = self._chunk_gain * reach.astype(np.float64)
